@@ -1,0 +1,53 @@
+"""``tonicity`` command line (DESIGN.md contract): serve, evaluate, inspect, replay, keys,
+feedback-report. Each subcommand lives in ``cds_service.commands.<name>`` with
+``add_arguments(parser)`` and ``run(args) -> int``; heavy imports happen inside ``run``.
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import sys
+
+from cds_service.errors import UserError
+
+COMMANDS: dict[str, tuple[str, str]] = {
+    "serve": ("serve", "run the CDS Hooks service"),
+    "evaluate": ("evaluate", "print the response the service would give for a request or Bundle"),
+    "inspect": ("inspect", "show what Tonicity understood of each resource in a Bundle"),
+    "replay": ("replay", "post the sample requests to a running deployment and check them"),
+    "keys": ("keys", "generate a client key pair and JWKS, or sign a test token"),
+    "feedback-report": ("feedback_report", "acceptance and override rates per finding code"),
+}
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="tonicity",
+        description="Tonicity: hyponatremia work-up and sodium order safety as CDS Hooks.",
+    )
+    sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
+    for name, (module_name, help_text) in COMMANDS.items():
+        module = importlib.import_module(f"cds_service.commands.{module_name}")
+        p = sub.add_parser(name, help=help_text, description=help_text)
+        module.add_arguments(p)
+        p.set_defaults(_run=module.run)
+    return parser
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    try:
+        return int(args._run(args) or 0)
+    except UserError as exc:
+        print(f"tonicity {args.command}: {exc}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        return 130
+    except BrokenPipeError:
+        return 0
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())
