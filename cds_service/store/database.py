@@ -4,8 +4,9 @@ from __future__ import annotations
 
 from collections.abc import Iterator
 from contextlib import contextmanager
+from datetime import UTC, datetime
 
-from sqlalchemy import Engine, create_engine, event
+from sqlalchemy import Engine, create_engine, event, make_url
 from sqlalchemy.orm import Session, sessionmaker
 
 from cds_service.store.schema import Base
@@ -29,14 +30,33 @@ class Store:
         self._sessions = sessionmaker(self.engine, expire_on_commit=False)
         Base.metadata.create_all(self.engine)
 
+    @property
+    def safe_url(self) -> str:
+        """The URL with any password masked, fit for messages and logs."""
+        return make_url(self.url).render_as_string(hide_password=True)
+
     @contextmanager
     def session(self) -> Iterator[Session]:
-        """A session that commits on success and rolls back on error."""
+        """A session that commits on success and rolls back on error.
+
+        The commit happens when the ``with`` block ends, so a caller that answers only after
+        leaving the block answers only for data that is on disk.
+        """
         with self._sessions() as s, s.begin():
             yield s
 
     def close(self) -> None:
         self.engine.dispose()
+
+
+def as_utc(moment: datetime) -> datetime:
+    """An aware datetime in UTC. SQLite keeps no zone, so every write goes through here.
+
+    A naive value (as SQLite gives back) is read as UTC.
+    """
+    if moment.tzinfo is None:
+        return moment.replace(tzinfo=UTC)
+    return moment.astimezone(UTC)
 
 
 def _sqlite_pragmas(dbapi_connection, _record) -> None:  # type: ignore[no-untyped-def]

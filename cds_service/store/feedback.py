@@ -1,0 +1,141 @@
+"""The CDS Hooks 2.0 feedback endpoint's body: validation and atomic storage.
+
+Body shape (HL7 CDS Hooks 2.0, section "Feedback"; checked against the published logical model
+CDSHooksFeedback): ``{"feedback": [Feedback, ...]}`` where each Feedback has ``card`` (the
+card's uuid), ``outcome`` (``accepted`` | ``overridden``), ``acceptedSuggestions`` (list of
+``{"id": uuid}``), ``overrideReason`` (``{"reason": Coding, "userComment": string}``, both
+optional) and ``outcomeTimestamp`` (an instant, UTC). Unknown members are ignored, as the
+specification's extension rules allow. "Ignored" is not an outcome a client sends: a card that
+never receives feedback counts as ignored in the report.
+
+Choices of ours: ``overrideReason`` only with ``overridden`` and ``acceptedSuggestions`` only
+with ``accepted`` (the specification describes each for that outcome only); a timestamp without
+a zone is read as UTC (the specification says the value is in UTC); at most 500 items per body.
+"""
+
+from __future__ import annotations
+
+import json
+from datetime import datetime
+from typing import Literal
+
+from pydantic import BaseModel, ConfigDict, Field, ValidationError, model_validator
+from sqlalchemy import select
+
+from cds_service.errors import UserError
+from cds_service.store.database import Store, as_utc
+from cds_service.store.report import FeedbackReport, feedback_report
+from cds_service.store.schema import CardLog, Feedback
+
+__all__ = ["FeedbackReport", "feedback_report", "parse_feedback", "record_feedback"]
+
+MAX_ITEMS = 500
+
+
+class _Model(BaseModel):
+    model_config = ConfigDict(extra="ignore", frozen=True, str_strip_whitespace=True)
+
+
+class Coding(_Model):
+    code: str = Field(min_length=1, max_length=100)
+    system: str | None = Field(None, max_length=300)
+    display: str | None = Field(None, max_length=300)
+
+
+class OverrideReason(_Model):
+    reason: Coding | None = None
+    userComment: str | None = Field(None, max_length=2000)
+
+
+class AcceptedSuggestion(_Model):
+    id: str = Field(min_length=1, max_length=64)
+
+
+class FeedbackItem(_Model):
+    card: str = Field(min_length=1, max_length=64)
+    outcome: Literal["accepted", "overridden"]
+    acceptedSuggestions: list[AcceptedSuggestion] = Field(default_factory=list)
+    overrideReason: OverrideReason | None = None
+    outcomeTimestamp: datetime
+
+    @model_validator(mode="after")
+    def _fits_outcome(self) -> FeedbackItem:
+        if self.overrideReason is not None and self.outcome != "overridden":
+            raise ValueError("overrideReason is only allowed with outcome 'overridden'")
+        if self.acceptedSuggestions and self.outcome != "accepted":
+            raise ValueError("acceptedSuggestions is only allowed with outcome 'accepted'")
+        return self
+
+
+class FeedbackBody(_Model):
+    feedback: list[FeedbackItem] = Field(min_length=1, max_length=MAX_ITEMS)
+
+
+def parse_feedback(payload: object) -> FeedbackBody:
+    """Validate a feedback body; a bad one raises UserError naming the first problem."""
+    if not isinstance(payload, dict):
+        raise UserError("feedback body must be a JSON object with a 'feedback' array")
+    try:
+        return FeedbackBody.model_validate(payload)
+    except ValidationError as exc:
+        err = exc.errors(include_url=False, include_input=False)[0]
+        where = _location(err.get("loc", ()))
+        raise UserError(f"invalid feedback: {where}: {err.get('msg', 'invalid')}") from None
+
+
+def record_feedback(
+    store: Store,
+    service_id: str,
+    payload: dict,
+    client_id: str | None,
+    now: datetime,
+) -> int:
+    """Store every item of one feedback body, or none of them; returns the number stored.
+
+    An item whose card is not in the card log for ``service_id`` is kept with
+    ``unknown_card`` set, so a client's reports are never lost and the report can count them.
+    The transaction is committed before this returns.
+    """
+    body = parse_feedback(payload)
+    uuids = {item.card for item in body.feedback}
+    received = as_utc(now)
+    with store.session() as s:
+        known = set(
+            s.scalars(
+                select(CardLog.card_uuid).where(
+                    CardLog.card_uuid.in_(uuids), CardLog.service_id == service_id
+                )
+            )
+        )
+        s.add_all(
+            _row(item, service_id, client_id, received, item.card not in known)
+            for item in body.feedback
+        )
+    return len(body.feedback)
+
+
+def _row(
+    item: FeedbackItem, service_id: str, client_id: str | None, received: datetime, unknown: bool
+) -> Feedback:
+    reason = item.overrideReason.reason if item.overrideReason else None
+    accepted = [s.id for s in item.acceptedSuggestions]
+    return Feedback(
+        card_uuid=item.card,
+        service_id=service_id,
+        outcome=item.outcome,
+        accepted_suggestions=json.dumps(accepted) if accepted else None,
+        override_reason_code=reason.code if reason else None,
+        override_reason_display=reason.display if reason else None,
+        override_comment=item.overrideReason.userComment if item.overrideReason else None,
+        outcome_at=as_utc(item.outcomeTimestamp),
+        received_at=received,
+        unknown_card=unknown,
+        client_id=client_id[:300] if client_id else None,
+    )
+
+
+def _location(loc: tuple[int | str, ...] | list[int | str]) -> str:
+    out = ""
+    for part in loc:
+        out += f"[{part}]" if isinstance(part, int) else (f".{part}" if out else str(part))
+    return out or "body"
