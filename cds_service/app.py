@@ -1,0 +1,341 @@
+"""The FastAPI application: routes only, no clinical logic.
+
+- ``GET /cds-services``: discovery.
+- ``POST /cds-services/{id}``: a hook call (see :mod:`cds_service.hooks.service`).
+- ``POST /cds-services/{id}/feedback``: CDS Hooks 2.0 feedback, stored with the card log.
+- ops (``/healthz``, ``/readyz``, ``/metrics``) and the web workbench and trend pages.
+
+Every error is a FHIR OperationOutcome: 400 for what a caller sent wrong (FastAPI's 422 is
+answered as 400), 401 for failed client authentication (with ``WWW-Authenticate: Bearer``),
+404 for an unknown service, 412 when required data cannot be had, 413 for a body over
+``server.max_body_bytes``, and 500, without internals, for our own faults only.
+"""
+
+from __future__ import annotations
+
+import json
+import logging
+import time
+from collections.abc import AsyncIterator, Awaitable, Callable, MutableMapping
+from contextlib import asynccontextmanager
+from datetime import UTC, datetime
+from typing import Any
+
+import httpx
+from fastapi import FastAPI, Request
+from fastapi.exceptions import RequestValidationError
+from fastapi.responses import JSONResponse
+from starlette.exceptions import HTTPException as StarletteHTTPException
+
+from cds_service.config import Settings
+from cds_service.errors import UserError
+from cds_service.hooks.registry import SERVICES, discovery
+from cds_service.hooks.service import HookError, evaluate
+from cds_service.store import Store
+
+_log = logging.getLogger(__name__)
+
+LOCAL_TRIAL_HEADER = "X-Tonicity-Auth"
+LOCAL_TRIAL_VALUE = "disabled (local trial - do not use with real patient data)"
+
+_ISSUE_CODES = {
+    400: "invalid",
+    401: "login",
+    403: "forbidden",
+    404: "not-found",
+    405: "not-supported",
+    412: "incomplete",
+    413: "too-costly",
+    500: "exception",
+}
+
+
+def operation_outcome(
+    status: int, message: str, headers: dict[str, str] | None = None
+) -> JSONResponse:
+    body = {
+        "resourceType": "OperationOutcome",
+        "issue": [
+            {
+                "severity": "error" if status < 500 else "fatal",
+                "code": _ISSUE_CODES.get(status, "processing"),
+                "diagnostics": message,
+            }
+        ],
+    }
+    return JSONResponse(body, status_code=status, headers=headers)
+
+
+class BodyTooLarge(Exception):
+    pass
+
+
+async def read_json(request: Request, limit: int) -> Any:
+    """The request body as JSON, refusing more than ``limit`` bytes (declared or streamed)."""
+    declared = request.headers.get("content-length")
+    if declared is not None:
+        try:
+            if int(declared) > limit:
+                raise BodyTooLarge
+        except ValueError:
+            raise HookError(400, "Content-Length is not a number") from None
+    chunks: list[bytes] = []
+    size = 0
+    async for chunk in request.stream():
+        size += len(chunk)
+        if size > limit:
+            raise BodyTooLarge
+        chunks.append(chunk)
+    raw = b"".join(chunks)
+    if not raw.strip():
+        raise HookError(400, "the request body is empty; a JSON object is required")
+    try:
+        return json.loads(raw)
+    except (UnicodeDecodeError, json.JSONDecodeError) as exc:
+        raise HookError(
+            400, f"the request body is not valid JSON ({exc.__class__.__name__})"
+        ) from None
+
+
+def _local_trial(settings: Settings) -> bool:
+    return settings.local_trial or not settings.auth.required
+
+
+class _LocalTrialHeader:
+    """Adds the local-trial warning header to every response (pure ASGI, streams untouched)."""
+
+    def __init__(self, app: Callable[..., Awaitable[None]]) -> None:
+        self.app = app
+
+    async def __call__(self, scope: MutableMapping[str, Any], receive: Any, send: Any) -> None:
+        if scope["type"] != "http":
+            await self.app(scope, receive, send)
+            return
+
+        async def send_with_header(message: MutableMapping[str, Any]) -> None:
+            if message["type"] == "http.response.start":
+                headers = list(message.get("headers", []))
+                headers.append((LOCAL_TRIAL_HEADER.lower().encode(), LOCAL_TRIAL_VALUE.encode()))
+                message["headers"] = headers
+            await send(message)
+
+        await self.app(scope, receive, send_with_header)
+
+
+class _AnonymousAuthenticator:
+    """Stand-in used only while the security module is absent: lets nothing reach a FHIR server."""
+
+    async def authenticate(self, authorization: str | None, endpoint_url: str) -> None:
+        return None
+
+    def fhir_server_allowed(self, caller: object, fhir_server: str) -> bool:
+        return False
+
+
+def _authenticator(settings: Settings, store: Store, http: httpx.AsyncClient) -> Any:
+    try:
+        from cds_service.hooks.auth import Authenticator
+    except ImportError:
+        if settings.auth.required:
+            raise RuntimeError("auth.required is set but the authenticator is missing") from None
+        return _AnonymousAuthenticator()
+    return Authenticator(settings, store, http)
+
+
+def create_app(settings: Settings) -> FastAPI:
+    """The service for these settings; resources are opened and closed by the lifespan."""
+
+    @asynccontextmanager
+    async def lifespan(app: FastAPI) -> AsyncIterator[None]:
+        from cds_service.clinical.thresholds import load_thresholds
+
+        store = Store(settings.storage.url)
+        http = httpx.AsyncClient(
+            timeout=httpx.Timeout(
+                settings.fhir.time_budget_seconds, connect=settings.fhir.connect_timeout_seconds
+            ),
+            follow_redirects=False,
+        )
+        try:
+            app.state.store = store
+            app.state.http = http
+            app.state.thresholds = load_thresholds(settings.clinical)
+            app.state.authenticator = _authenticator(settings, store, http)
+            yield
+        finally:
+            await http.aclose()
+            store.close()
+
+    app = FastAPI(
+        title="Tonicity",
+        description="Hyponatremia work-up and sodium order safety as CDS Hooks 2.0 services.",
+        lifespan=lifespan,
+    )
+    app.state.settings = settings
+    if _local_trial(settings):
+        app.add_middleware(_LocalTrialHeader)
+    _install_error_handlers(app)
+    _install_routes(app, settings)
+    _include_routers(app)
+    return app
+
+
+def _install_error_handlers(app: FastAPI) -> None:
+    @app.exception_handler(RequestValidationError)
+    async def _validation(_request: Request, exc: RequestValidationError) -> JSONResponse:
+        errors = exc.errors()
+        first = errors[0] if errors else {}
+        where = ".".join(str(p) for p in first.get("loc", ())) or "request"
+        return operation_outcome(400, f"invalid request: {where}: {first.get('msg', 'invalid')}")
+
+    @app.exception_handler(StarletteHTTPException)
+    async def _http(_request: Request, exc: StarletteHTTPException) -> JSONResponse:
+        return operation_outcome(exc.status_code, str(exc.detail), getattr(exc, "headers", None))
+
+    @app.exception_handler(HookError)
+    async def _hook(_request: Request, exc: HookError) -> JSONResponse:
+        return operation_outcome(exc.status, exc.message)
+
+    @app.exception_handler(BodyTooLarge)
+    async def _too_large(request: Request, _exc: BodyTooLarge) -> JSONResponse:
+        limit = request.app.state.settings.server.max_body_bytes
+        return operation_outcome(413, f"the request body is larger than {limit} bytes")
+
+    @app.exception_handler(Exception)
+    async def _internal(_request: Request, exc: Exception) -> JSONResponse:
+        _log.error("internal error: %s", type(exc).__name__, exc_info=exc)
+        return operation_outcome(500, "internal error; the request was not evaluated")
+
+
+async def _authenticate(request: Request, settings: Settings) -> Any:
+    """The calling client, or a 401 OperationOutcome as an exception."""
+    authenticator = request.app.state.authenticator
+    endpoint = f"{settings.server.public_base_url}{request.url.path}"
+    try:
+        return await authenticator.authenticate(request.headers.get("authorization"), endpoint)
+    except Exception as exc:
+        if type(exc).__name__ != "AuthError":
+            raise
+        reason = getattr(exc, "reason", None) or str(exc) or "authentication failed"
+        raise _Unauthorized(reason) from None
+
+
+class _Unauthorized(Exception):
+    def __init__(self, reason: str) -> None:
+        super().__init__(reason)
+        self.reason = reason
+
+
+def _install_routes(app: FastAPI, settings: Settings) -> None:
+    @app.exception_handler(_Unauthorized)
+    async def _unauthorized(_request: Request, exc: _Unauthorized) -> JSONResponse:
+        return operation_outcome(
+            401, f"authentication failed: {exc.reason}", {"WWW-Authenticate": "Bearer"}
+        )
+
+    @app.get("/cds-services")
+    async def list_services(request: Request) -> JSONResponse:
+        await _authenticate(request, settings)
+        return JSONResponse(discovery())
+
+    @app.post("/cds-services/{service_id}")
+    async def call_service(service_id: str, request: Request) -> JSONResponse:
+        started = time.perf_counter()
+        status = 500
+        outcome = None
+        caller = await _authenticate(request, settings)
+        try:
+            if service_id not in SERVICES:
+                raise HookError(404, f"no CDS service with id {service_id!r}")
+            body = await read_json(request, settings.server.max_body_bytes)
+            state = request.app.state
+            outcome = await evaluate(
+                body,
+                settings=settings,
+                thresholds=state.thresholds,
+                now=datetime.now(UTC),
+                http=state.http,
+                caller=caller,
+                service_id=service_id,
+                store=state.store,
+                authenticator=state.authenticator,
+            )
+            status = 200
+            return JSONResponse(outcome.response)
+        except HookError as exc:
+            status = exc.status
+            raise
+        except BodyTooLarge:
+            status = 413
+            raise
+        finally:
+            seconds = time.perf_counter() - started
+            _observe(service_id, status, seconds)
+            _audit(settings, caller, service_id, status, seconds, outcome)
+
+    @app.post("/cds-services/{service_id}/feedback")
+    async def feedback(service_id: str, request: Request) -> JSONResponse:
+        caller = await _authenticate(request, settings)
+        if service_id not in SERVICES:
+            raise HookError(404, f"no CDS service with id {service_id!r}")
+        body = await read_json(request, settings.server.max_body_bytes)
+        from starlette.concurrency import run_in_threadpool
+
+        from cds_service.store.feedback import record_feedback
+
+        try:
+            stored = await run_in_threadpool(
+                record_feedback,
+                request.app.state.store,
+                service_id,
+                body,
+                getattr(caller, "issuer", None),
+                datetime.now(UTC),
+            )
+        except UserError as exc:
+            raise HookError(400, str(exc)) from None
+        return JSONResponse({"stored": stored})
+
+
+def _observe(service_id: str, status: int, seconds: float) -> None:
+    from cds_service import ops
+
+    ops.observe_request(service_id if service_id in SERVICES else "unknown", status, seconds)
+
+
+def _audit(
+    settings: Settings,
+    caller: object,
+    service_id: str,
+    status: int,
+    seconds: float,
+    outcome: Any,
+) -> None:
+    """One audit line per hook call: client, service, finding codes, latency, status."""
+    try:
+        from cds_service import logs
+    except ImportError:
+        return
+    try:
+        logs.audit(
+            client=getattr(caller, "issuer", None),
+            tenant=getattr(caller, "tenant", None),
+            service=service_id if service_id in SERVICES else "unknown",
+            codes=list(outcome.codes) if outcome else [],
+            latency_ms=round(seconds * 1000, 1),
+            status=status,
+        )
+    except Exception:  # the audit line must never change the answer
+        _log.exception("audit line not written")
+
+
+def _include_routers(app: FastAPI) -> None:
+    from cds_service import ops
+
+    app.include_router(ops.router)
+    try:
+        from cds_service.web import create_router
+    except ImportError:
+        _log.warning("web workbench not available in this build")
+        return
+    app.include_router(create_router())

@@ -1,0 +1,188 @@
+"""Render a clinical :class:`Finding` as a CDS Hooks card.
+
+The detail is GitHub-flavoured markdown a clinician can check independently: the finding, the
+numbers with their inputs (value, unit, when taken and how old), the formulas, the published
+sources, the missing tests and next steps, the cautions, and always the caution line.
+"""
+
+from __future__ import annotations
+
+import uuid
+from collections.abc import Iterable
+from datetime import UTC, datetime
+from typing import Any
+
+from cds_service.clinical.context import Analyte
+from cds_service.clinical.findings import FINDING_DISPLAY, Finding, FindingCode, Urgency
+from cds_service.hooks.models import Action, Card, Coding, Link, Source, Suggestion
+
+SOURCE_LABEL = "Tonicity"
+TOPIC_SYSTEM = "https://tonicity.example.org/finding"
+OVERRIDE_SYSTEM = "https://tonicity.example.org/override-reason"
+CAUTION = (
+    "Decision support for licensed clinicians: check against the patient and local protocols; "
+    "this is not an order and does not replace clinical judgement."
+)
+
+#: Override reasons offered on warning and critical cards (codes of our own).
+OVERRIDE_REASONS: tuple[tuple[str, str], ...] = (
+    ("already-addressed", "Already addressed"),
+    ("patient-specific-target", "Patient-specific target agreed"),
+    ("benefit-outweighs-risk", "Benefit outweighs the risk for this patient"),
+    ("data-not-current", "Data not current or not representative"),
+    ("other", "Other reason"),
+)
+
+VALUES_EXTENSION = "tonicity.values"
+
+
+def _age(then: datetime, now: datetime) -> str:
+    seconds = (now - then).total_seconds()
+    if seconds < 0:
+        return "in the future relative to the evaluation time"
+    minutes = seconds / 60
+    if minutes < 90:
+        return f"{minutes:.0f} min ago"
+    hours = minutes / 60
+    if hours < 48:
+        return f"{hours:.0f} h ago"
+    return f"{hours / 24:.1f} days ago"
+
+
+def _number(value: float | str) -> str:
+    if isinstance(value, float):
+        return f"{value:.3g}" if abs(value) < 10 else f"{value:.1f}".rstrip("0").rstrip(".")
+    return str(value)
+
+
+def _section(title: str, lines: Iterable[str]) -> list[str]:
+    items = [line for line in lines if line]
+    return [f"**{title}**", "", *(f"- {line}" for line in items), ""] if items else []
+
+
+def _test_name(analyte: str) -> str:
+    from cds_service.fhir.loinc import primary_code
+
+    try:
+        return primary_code(Analyte(analyte))[1]
+    except (ValueError, KeyError):
+        return analyte.replace("_", " ")
+
+
+def render_detail(finding: Finding, now: datetime, unavailable: Iterable[str] = ()) -> str:
+    """The card detail in markdown."""
+    out: list[str] = [f"**{FINDING_DISPLAY[finding.code]}**", ""]
+    out += [*finding.details, ""] if finding.details else []
+    if finding.values:
+        out += ["| Value | Result | Unit |", "|---|---|---|"]
+        out += [f"| {v.name} | {_number(v.value)} | {v.unit} |" for v in finding.values]
+        out.append("")
+    inputs = []
+    for i in finding.inputs:
+        when = (
+            f", taken {i.time.astimezone(UTC):%Y-%m-%d %H:%M} UTC ({_age(i.time, now)})"
+            if i.time
+            else ""
+        )
+        ref = f" [{i.source_id}]" if i.source_id else ""
+        note = f" ({i.note})" if i.note else ""
+        inputs.append(f"{i.label}: {_number(i.value)} {i.unit}{when}{note}{ref}")
+    out += _section("Inputs", inputs)
+    out += _section("Formulas", (f"`{f}`" for f in finding.formulas))
+    out += _section("Sources", finding.sources)
+    out += _section("Missing tests", (_test_name(a) for a in finding.missing))
+    out += _section("Next steps", finding.next_steps)
+    out += _section("Not available", unavailable)
+    out += _section("Cautions", finding.cautions)
+    out.append(f"> {CAUTION}")
+    return "\n".join(out)
+
+
+def _suggestions(finding: Finding, patient_id: str) -> list[Suggestion]:
+    from cds_service.fhir.builders import service_request
+
+    reason = f"Hyponatremia work-up: {FINDING_DISPLAY[finding.code]}"
+    out: list[Suggestion] = []
+    for analyte in finding.missing:
+        name = _test_name(analyte)
+        resource = service_request(Analyte(analyte), patient_id, reason)
+        out.append(
+            Suggestion(
+                label=f"Order {name}"[:80],
+                uuid=str(uuid.uuid4()),
+                actions=[
+                    Action(type="create", description=f"Draft order for {name}", resource=resource)
+                ],
+            )
+        )
+    if finding.remove_draft:
+        out.append(
+            Suggestion(
+                label="Remove the drafted order",
+                uuid=str(uuid.uuid4()),
+                actions=[
+                    Action(
+                        type="delete",
+                        description=f"Remove the draft {finding.remove_draft}",
+                        resourceId=finding.remove_draft,
+                    )
+                ],
+            )
+        )
+    return out
+
+
+def values_extension(finding: Finding) -> dict[str, Any] | None:
+    if not finding.values:
+        return None
+    return {
+        VALUES_EXTENSION: [
+            {"name": str(v.name), "value": v.value, "unit": v.unit} for v in finding.values
+        ]
+    }
+
+
+def render_card(
+    finding: Finding,
+    *,
+    now: datetime,
+    patient_id: str,
+    unavailable: Iterable[str] = (),
+    links: Iterable[Link] = (),
+) -> Card:
+    suggestions = _suggestions(finding, patient_id)
+    weighty = finding.urgency in (Urgency.WARNING, Urgency.CRITICAL)
+    return Card(
+        uuid=str(uuid.uuid4()),
+        summary=finding.summary,
+        detail=render_detail(finding, now, unavailable),
+        indicator=finding.urgency.value,
+        source=Source(
+            label=SOURCE_LABEL,
+            topic=Coding(
+                system=TOPIC_SYSTEM, code=finding.code.value, display=FINDING_DISPLAY[finding.code]
+            ),
+        ),
+        suggestions=suggestions,
+        selectionBehavior="any" if suggestions else None,
+        overrideReasons=(
+            [Coding(system=OVERRIDE_SYSTEM, code=c, display=d) for c, d in OVERRIDE_REASONS]
+            if weighty
+            else []
+        ),
+        links=list(links),
+        extension=values_extension(finding),
+    )
+
+
+_RANK = {Urgency.CRITICAL: 0, Urgency.WARNING: 1, Urgency.INFO: 2}
+
+
+def one_per_code(findings: Iterable[Finding]) -> list[Finding]:
+    """At most one finding per code (the weightiest), most urgent first, order kept otherwise."""
+    best: dict[FindingCode, Finding] = {}
+    for f in findings:
+        kept = best.get(f.code)
+        if kept is None or _RANK[f.urgency] < _RANK[kept.urgency]:
+            best[f.code] = f
+    return sorted(best.values(), key=lambda f: _RANK[f.urgency])

@@ -1,0 +1,146 @@
+"""Fetch what the client did not prefetch, from its ``fhirServer``, with its bearer token.
+
+All queries of one hook call run concurrently through the one shared ``httpx.AsyncClient``,
+under one time budget; searchset pages are followed through their ``next`` links up to a bound,
+only on the same server (the token must never travel elsewhere), and a link seen twice stops
+the walk. The access token is used only in the ``Authorization`` header of these requests; it
+is never logged, stored or put into an error message.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import logging
+from dataclasses import dataclass
+from typing import Any
+from urllib.parse import urljoin, urlsplit
+
+import httpx
+
+_log = logging.getLogger(__name__)
+
+
+@dataclass(frozen=True, slots=True)
+class FetchResult:
+    """``data`` (resource, merged searchset Bundle or None) or ``error`` with its ``kind``."""
+
+    data: dict[str, Any] | None = None
+    error: str | None = None
+    kind: str | None = None  # timeout | auth | http | network | invalid | not-found
+
+
+class FetchError(Exception):
+    def __init__(self, kind: str, message: str) -> None:
+        super().__init__(message)
+        self.kind = kind
+
+
+def _same_server(url: str, base: str) -> bool:
+    u, b = urlsplit(url), urlsplit(base)
+    return (u.scheme, u.netloc) == (b.scheme, b.netloc) and u.path.startswith(b.path.rstrip("/"))
+
+
+def _next_link(bundle: dict[str, Any]) -> str | None:
+    for link in bundle.get("link") or []:
+        if isinstance(link, dict) and link.get("relation") == "next" and link.get("url"):
+            return str(link["url"])
+    return None
+
+
+async def _get(http: httpx.AsyncClient, url: str, headers: dict[str, str]) -> dict[str, Any]:
+    try:
+        response = await http.get(url, headers=headers)
+    except httpx.TimeoutException:
+        raise FetchError("timeout", "FHIR server did not answer in time") from None
+    except httpx.HTTPError as exc:
+        raise FetchError("network", f"FHIR server unreachable ({type(exc).__name__})") from None
+    if response.status_code in (401, 403):
+        raise FetchError("auth", f"FHIR server refused access ({response.status_code})")
+    if response.status_code == 404:
+        raise FetchError("not-found", "FHIR server has no such resource (404)")
+    if response.status_code != 200:
+        raise FetchError("http", f"FHIR server answered {response.status_code}")
+    try:
+        body = response.json()
+    except ValueError:
+        raise FetchError("invalid", "FHIR server sent something that is not JSON") from None
+    if not isinstance(body, dict) or not isinstance(body.get("resourceType"), str):
+        raise FetchError("invalid", "FHIR server sent JSON that is not a FHIR resource")
+    if body["resourceType"] == "OperationOutcome":
+        raise FetchError("http", "FHIR server answered with an OperationOutcome")
+    return body
+
+
+async def fetch_query(
+    http: httpx.AsyncClient,
+    base: str,
+    query: str,
+    token: str | None,
+    *,
+    max_pages: int,
+) -> dict[str, Any]:
+    """One read or search against ``base``; searchset pages merged into one Bundle."""
+    headers = {"Accept": "application/fhir+json"}
+    if token:
+        headers["Authorization"] = f"Bearer {token}"
+    url = urljoin(base.rstrip("/") + "/", query)
+    first = await _get(http, url, headers)
+    if first["resourceType"] != "Bundle":
+        return first
+    entries = list(first.get("entry") or [])
+    seen = {url}
+    pages = 1
+    next_url = _next_link(first)
+    while next_url and pages < max_pages:
+        next_url = urljoin(url, next_url)
+        if next_url in seen:
+            _log.warning("fhir fetch: next link loops back; stopped after %d pages", pages)
+            break
+        if not _same_server(next_url, base):
+            _log.warning("fhir fetch: next link leaves the FHIR server; not followed")
+            break
+        seen.add(next_url)
+        page = await _get(http, next_url, headers)
+        entries.extend(page.get("entry") or [])
+        pages += 1
+        next_url = _next_link(page) if page["resourceType"] == "Bundle" else None
+    merged = {k: v for k, v in first.items() if k not in ("entry", "link")}
+    merged["entry"] = entries
+    return merged
+
+
+async def fetch_all(
+    http: httpx.AsyncClient,
+    base: str,
+    queries: dict[str, str],
+    token: str | None,
+    *,
+    budget_seconds: float,
+    max_pages: int,
+) -> dict[str, FetchResult]:
+    """Run every query concurrently; whatever is not done within the budget is a timeout."""
+    if not queries:
+        return {}
+    tasks = {
+        key: asyncio.create_task(fetch_query(http, base, q, token, max_pages=max_pages))
+        for key, q in queries.items()
+    }
+    done, pending = await asyncio.wait(tasks.values(), timeout=budget_seconds)
+    for task in pending:
+        task.cancel()
+    if pending:
+        await asyncio.gather(*pending, return_exceptions=True)
+    results: dict[str, FetchResult] = {}
+    for key, task in tasks.items():
+        if task not in done:
+            results[key] = FetchResult(error="FHIR fetch exceeded the time budget", kind="timeout")
+            continue
+        exc = task.exception()
+        if exc is None:
+            results[key] = FetchResult(data=task.result())
+        elif isinstance(exc, FetchError):
+            results[key] = FetchResult(error=str(exc), kind=exc.kind)
+        else:
+            _log.error("fhir fetch failed unexpectedly: %s", type(exc).__name__)
+            results[key] = FetchResult(error="FHIR fetch failed", kind="internal")
+    return results

@@ -1,0 +1,156 @@
+"""CDS Hooks 2.0 request and response bodies as pydantic v2 models.
+
+The request models validate what a CDS client sends (unknown fields are kept, as the
+specification lets hooks and clients extend them); the response models describe what we send
+back. :func:`to_json` serialises a response by the JSON rules of the specification: optional
+fields are omitted rather than sent as ``null``, and no string, array or object is empty.
+"""
+
+from __future__ import annotations
+
+from typing import Any, Literal
+
+from pydantic import BaseModel, ConfigDict, Field, model_validator
+
+
+class _Open(BaseModel):
+    model_config = ConfigDict(extra="allow")
+
+
+class _Closed(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+
+
+# --- request -----------------------------------------------------------------------------
+
+
+class FhirAuthorization(_Open):
+    """OAuth 2.0 access to ``fhirServer`` granted by the client (never logged or stored)."""
+
+    access_token: str = Field(min_length=1)
+    token_type: str = "Bearer"  # noqa: S105 - the OAuth token type, not a secret
+    expires_in: int | None = None
+    scope: str = ""
+    subject: str = ""
+
+    def __repr__(self) -> str:  # keep the token out of tracebacks and debug output
+        return f"FhirAuthorization(token_type={self.token_type!r}, scope={self.scope!r})"
+
+    __str__ = __repr__
+
+
+class HookRequest(_Open):
+    hook: str = Field(min_length=1)
+    hookInstance: str = Field(min_length=1)
+    fhirServer: str | None = None
+    fhirAuthorization: FhirAuthorization | None = None
+    context: dict[str, Any]
+    prefetch: dict[str, Any] | None = None
+
+
+# --- response ----------------------------------------------------------------------------
+
+
+class Coding(_Closed):
+    system: str | None = None
+    code: str
+    display: str | None = None
+
+
+class Source(_Closed):
+    label: str
+    url: str | None = None
+    icon: str | None = None
+    topic: Coding | None = None
+
+
+class Action(_Closed):
+    type: Literal["create", "update", "delete"]
+    description: str
+    resource: dict[str, Any] | None = None
+    resourceId: str | None = None
+
+    @model_validator(mode="after")
+    def _target(self) -> Action:
+        if self.type in ("create", "update") and not self.resource:
+            raise ValueError(f"a {self.type} action needs a resource")
+        if self.type == "delete" and not self.resourceId:
+            raise ValueError("a delete action needs a resourceId")
+        return self
+
+
+class Suggestion(_Closed):
+    label: str
+    uuid: str | None = None
+    isRecommended: bool | None = None
+    actions: list[Action] = Field(default_factory=list)
+
+
+class Link(_Closed):
+    label: str
+    url: str
+    type: Literal["absolute", "smart"]
+    appContext: str | None = None
+
+
+class Card(_Closed):
+    uuid: str
+    summary: str = Field(min_length=1, max_length=139)
+    detail: str | None = None
+    indicator: Literal["info", "warning", "critical"]
+    source: Source
+    suggestions: list[Suggestion] = Field(default_factory=list)
+    selectionBehavior: Literal["at-most-one", "any"] | None = None
+    overrideReasons: list[Coding] = Field(default_factory=list)
+    links: list[Link] = Field(default_factory=list)
+    extension: dict[str, Any] | None = None
+
+
+class HookResponse(_Closed):
+    cards: list[Card] = Field(default_factory=list)
+    systemActions: list[Action] = Field(default_factory=list)
+
+
+# --- discovery ---------------------------------------------------------------------------
+
+
+class ServiceDescription(_Closed):
+    hook: str
+    title: str
+    description: str
+    id: str
+    prefetch: dict[str, str] = Field(default_factory=dict)
+    usageRequirements: str | None = None
+
+
+# --- serialisation -----------------------------------------------------------------------
+
+
+def prune(value: Any) -> Any:
+    """Drop ``None``, empty strings, empty arrays and empty objects, recursively.
+
+    Booleans and numbers are kept whatever their value (``false`` and ``0`` are data).
+    """
+    if isinstance(value, dict):
+        out = {}
+        for key, item in value.items():
+            item = prune(item)
+            if not _empty(item):
+                out[key] = item
+        return out
+    if isinstance(value, (list, tuple)):
+        items = [prune(item) for item in value]
+        return [item for item in items if not _empty(item)]
+    return value
+
+
+def _empty(value: Any) -> bool:
+    return value is None or (isinstance(value, (str, list, dict)) and len(value) == 0)
+
+
+def to_json(model: BaseModel) -> dict[str, Any]:
+    """A response model as spec-conformant JSON data (``{"cards": []}`` is kept as is)."""
+    data = prune(model.model_dump(mode="json", exclude_none=True))
+    if isinstance(model, HookResponse):
+        data.setdefault("cards", [])
+    return data

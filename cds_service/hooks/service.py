@@ -1,0 +1,356 @@
+"""One hook call, from request body to response body.
+
+:func:`evaluate_request` is the core behind both ``POST /cds-services/{id}`` and
+``tonicity evaluate``: it validates the body, checks the hook and its context, gathers the data
+(prefetch first, then the client's FHIR server for what is missing, when allowed), builds the
+clinical context, runs the clinical engine and renders one card per finding code. With a store
+it also logs the cards (patient as a salted hash) and saves a trend snapshot linked from the
+work-up and correction-rate cards. Callers' mistakes raise :class:`HookError` (400/404/412).
+"""
+
+from __future__ import annotations
+
+import asyncio
+import logging
+import re
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from datetime import datetime
+from typing import Any
+
+import httpx
+from pydantic import ValidationError
+
+from cds_service.clinical.findings import Finding, FindingCode
+from cds_service.config import Settings
+from cds_service.errors import UserError
+from cds_service.hooks.cards import one_per_code, render_card
+from cds_service.hooks.fetch import fetch_all
+from cds_service.hooks.models import Card, HookRequest, HookResponse, Link, to_json
+from cds_service.hooks.prefetch import PrefetchState, check_prefetch
+from cds_service.hooks.registry import REQUIRED_KEYS, SERVICES, Service, fill, prefetch_templates
+
+_log = logging.getLogger(__name__)
+
+#: A FHIR id (FHIR R4 ``id`` datatype); patient ids outside it never reach a query.
+FHIR_ID = re.compile(r"[A-Za-z0-9\-.]{1,64}")
+
+#: Codes whose cards link to the trend view (work-up and correction-rate surveillance).
+TREND_CODES = frozenset(
+    {
+        FindingCode.TONICITY_UNKNOWN,
+        FindingCode.HYPOTONIC,
+        FindingCode.ISOTONIC,
+        FindingCode.HYPERTONIC,
+        FindingCode.OSMOLAL_GAP,
+        FindingCode.DILUTE_URINE,
+        FindingCode.LOW_URINE_SODIUM,
+        FindingCode.SIADH_PATTERN,
+        FindingCode.DRUG_ASSOCIATED,
+        FindingCode.ENDOCRINE_SCREEN,
+        FindingCode.CORRECTION_RATE,
+    }
+)
+
+#: Readable names of the prefetch keys, for "not available" notes on cards.
+KEY_NAMES = {
+    "patient": "patient demographics",
+    "sodium": "sodium results",
+    "labs": "other laboratory results and body measurements",
+    "medicationRequests": "active medication orders",
+    "medicationStatements": "medication statements",
+    "conditions": "active problems",
+}
+
+
+class HookError(Exception):
+    """A caller's mistake or missing data: answered with ``status`` and an OperationOutcome."""
+
+    def __init__(self, status: int, message: str) -> None:
+        super().__init__(message)
+        self.status = status
+        self.message = message
+
+
+@dataclass(frozen=True, slots=True)
+class HookCall:
+    """A validated hook call for one service."""
+
+    service: Service
+    request: HookRequest
+    patient_id: str
+    draft_orders: tuple[dict[str, Any], ...] = ()
+    selections: tuple[str, ...] = ()
+
+
+@dataclass(slots=True)
+class Outcome:
+    """What one evaluation produced, for the response, the card log and the audit line."""
+
+    response: dict[str, Any]
+    service_id: str
+    patient_id: str
+    codes: list[str] = field(default_factory=list)
+    unavailable: dict[str, str] = field(default_factory=dict)
+
+
+def resolve_service(service_id: str | None, hook: object) -> Service:
+    if service_id is not None:
+        service = SERVICES.get(service_id)
+        if service is None:
+            raise HookError(404, f"no CDS service with id {service_id!r}")
+        return service
+    for service in SERVICES.values():
+        if service.hook == hook:
+            return service
+    raise HookError(400, f"no Tonicity service answers the hook {hook!r}")
+
+
+def parse_call(body: object, service_id: str | None = None) -> HookCall:
+    """Validate a request body for a service (by id, or by its hook). Raises HookError."""
+    if not isinstance(body, Mapping):
+        raise HookError(400, "the request body must be a JSON object")
+    service = resolve_service(service_id, body.get("hook"))
+    try:
+        request = HookRequest.model_validate(body)
+    except ValidationError as exc:
+        raise HookError(400, f"invalid hook request: {_first_error(exc)}") from None
+    if request.hook != service.hook:
+        raise HookError(
+            400, f"service {service.id!r} answers {service.hook!r}, not {request.hook!r}"
+        )
+    ctx = request.context
+    for key in service.required_context:
+        if ctx.get(key) in (None, "", [], {}) and not (key == "selections" and key in ctx):
+            raise HookError(400, f"context.{key} is required for the {service.hook} hook")
+    patient_id = ctx.get("patientId")
+    if not isinstance(patient_id, str) or not FHIR_ID.fullmatch(patient_id):
+        raise HookError(400, "context.patientId must be a FHIR id")
+    drafts: tuple[dict[str, Any], ...] = ()
+    selections: tuple[str, ...] = ()
+    if "draftOrders" in service.required_context:
+        drafts = _draft_resources(ctx.get("draftOrders"))
+    if "selections" in service.required_context:
+        selections = _selections(ctx.get("selections"), drafts)
+    return HookCall(service, request, patient_id, drafts, selections)
+
+
+def _draft_resources(bundle: object) -> tuple[dict[str, Any], ...]:
+    if not isinstance(bundle, Mapping) or bundle.get("resourceType") != "Bundle":
+        raise HookError(400, "context.draftOrders must be a FHIR Bundle")
+    out = []
+    for entry in bundle.get("entry") or []:
+        resource = entry.get("resource") if isinstance(entry, Mapping) else None
+        if not isinstance(resource, Mapping) or not isinstance(resource.get("resourceType"), str):
+            raise HookError(400, "every entry of context.draftOrders must hold a resource")
+        out.append(dict(resource))
+    return tuple(out)
+
+
+def _selections(value: object, drafts: tuple[dict[str, Any], ...]) -> tuple[str, ...]:
+    if not isinstance(value, list) or not all(isinstance(s, str) for s in value):
+        raise HookError(400, "context.selections must be a list of 'ResourceType/id' strings")
+    known = {f"{d.get('resourceType')}/{d.get('id')}" for d in drafts}
+    unknown = [s for s in value if s not in known]
+    if unknown:
+        raise HookError(400, f"context.selections names no draft order: {unknown[0][:100]}")
+    return tuple(value)
+
+
+def _first_error(exc: ValidationError) -> str:
+    err = exc.errors()[0]
+    where = ".".join(str(p) for p in err.get("loc", ())) or "body"
+    return f"{where}: {err.get('msg', 'invalid')}"
+
+
+async def gather_data(
+    call: HookCall,
+    settings: Settings,
+    *,
+    http: httpx.AsyncClient | None = None,
+    caller: object = None,
+    authenticator: Any = None,
+) -> PrefetchState:
+    """Prefetch, then fetch what is missing when the caller may send us to its FHIR server."""
+    templates = prefetch_templates()
+    try:
+        state = check_prefetch(call.request.prefetch, list(templates))
+    except UserError as exc:
+        raise HookError(400, str(exc)) from None
+    request = call.request
+    server = request.fhirServer
+    may_fetch = (
+        http is not None
+        and bool(server)
+        and authenticator is not None
+        and authenticator.fhir_server_allowed(caller, server)
+    )
+    if state.to_fetch and may_fetch:
+        assert server is not None and http is not None
+        token = request.fhirAuthorization.access_token if request.fhirAuthorization else None
+        queries = {key: fill(templates[key], request.context) for key in state.to_fetch}
+        results = await fetch_all(
+            http,
+            server,
+            queries,
+            token,
+            budget_seconds=settings.fhir.time_budget_seconds,
+            max_pages=settings.fhir.max_pages,
+        )
+        for key, result in results.items():
+            if result.error is not None:
+                _count_fetch_error(result.kind or "unknown")
+            state.settle(key, result.data, result.error)
+    else:
+        for key in state.to_fetch:
+            state.settle(key, None, "not prefetched, and no FHIR access to fetch it")
+    return state
+
+
+def _count_fetch_error(kind: str) -> None:
+    from cds_service import ops
+
+    ops.count_fetch_error(kind)
+
+
+def _require(state: PrefetchState) -> None:
+    missing = [k for k in REQUIRED_KEYS if k in state.unavailable and k not in state.data]
+    if missing:
+        reasons = "; ".join(f"{k}: {state.unavailable[k]}" for k in missing)
+        raise HookError(412, f"required data not available ({reasons})")
+
+
+async def evaluate_request(body: object, **kwargs: Any) -> dict[str, Any]:
+    """The response body for a hook call; keywords as :func:`evaluate`. Raises HookError."""
+    return (await evaluate(body, **kwargs)).response
+
+
+def evaluate_request_sync(body: object, **kwargs: Any) -> dict[str, Any]:
+    """:func:`evaluate_request` for synchronous callers (no running event loop)."""
+    return asyncio.run(evaluate_request(body, **kwargs))
+
+
+async def evaluate(
+    body: object,
+    *,
+    settings: Settings,
+    thresholds: Any,
+    now: datetime,
+    http: httpx.AsyncClient | None = None,
+    caller: object = None,
+    service_id: str | None = None,
+    store: Any = None,
+    authenticator: Any = None,
+) -> Outcome:
+    """Evaluate one hook call (see module doc): ``settings``, ``thresholds`` and ``now`` are
+    required; ``http`` + ``authenticator`` enable fetching from the client's FHIR server;
+    ``store`` enables the card log and the trend snapshot; ``service_id`` None means the
+    service answering the body's hook."""
+    from cds_service.clinical import engine
+    from cds_service.fhir import build_context
+
+    call = parse_call(body, service_id)
+    state = await gather_data(call, settings, http=http, caller=caller, authenticator=authenticator)
+    _require(state)
+    ingested = build_context(
+        state.resources(),
+        now=now,
+        settings=settings.ingest,
+        patient_id=call.patient_id,
+        draft_orders=call.draft_orders,
+        selections=call.selections,
+    )
+    ctx = ingested.context
+    if call.service.hook == "patient-view":
+        findings = engine.evaluate_workup(ctx, thresholds)
+    else:
+        findings = engine.evaluate_orders(ctx, thresholds)
+    findings = one_per_code(findings)
+    unavailable = [
+        f"{KEY_NAMES.get(k, k)}: {reason}" for k, reason in sorted(state.unavailable.items())
+    ]
+    links: list[Link] = []
+    if store is not None and any(f.code in TREND_CODES for f in findings):
+        link = await asyncio.to_thread(_trend_link, store, settings, ctx, findings, thresholds, now)
+        links = [link] if link else []
+    cards: list[Card] = [
+        render_card(
+            f,
+            now=now,
+            patient_id=call.patient_id,
+            unavailable=unavailable,
+            links=links if f.code in TREND_CODES else (),
+        )
+        for f in findings
+    ]
+    if store is not None and cards:
+        await asyncio.to_thread(_log_cards, store, settings, call, cards, _client_id(caller), now)
+    return Outcome(
+        response=to_json(HookResponse(cards=cards)),
+        service_id=call.service.id,
+        patient_id=call.patient_id,
+        codes=[c.source.topic.code for c in cards if c.source.topic],
+        unavailable=dict(state.unavailable),
+    )
+
+
+def _client_id(caller: object) -> str | None:
+    issuer = getattr(caller, "issuer", None)
+    return str(issuer) if issuer else None
+
+
+def _trend_link(
+    store: Any,
+    settings: Settings,
+    ctx: Any,
+    findings: list[Finding],
+    thresholds: Any,
+    now: datetime,
+) -> Link | None:
+    from cds_service.web import snapshots
+
+    try:
+        payload = snapshots.snapshot_payload(ctx, findings, thresholds)
+        token = snapshots.save_snapshot(
+            store, payload, ttl_hours=settings.server.trend_link_ttl_hours, now=now
+        )
+    except Exception:  # the trend view is a convenience: never fail the cards for it
+        _log.exception("trend snapshot not saved")
+        return None
+    return Link(
+        label="Sodium trend and correction band",
+        url=f"{settings.server.public_base_url}/trend/{token}",
+        type="absolute",
+    )
+
+
+def _log_cards(
+    store: Any,
+    settings: Settings,
+    call: HookCall,
+    cards: list[Card],
+    client_id: str | None,
+    now: datetime,
+) -> None:
+    from cds_service import logs, ops
+    from cds_service.store.cards import CardLogRow, log_cards
+
+    patient_hash = logs.hash_patient_id(settings.logging.patient_id_salt, call.patient_id)
+    rows = [
+        CardLogRow(
+            card_uuid=card.uuid,
+            service_id=call.service.id,
+            finding_code=card.source.topic.code if card.source.topic else "unknown",
+            indicator=card.indicator,
+            patient_hash=patient_hash,
+            client_id=client_id,
+            created_at=now,
+        )
+        for card in cards
+    ]
+    try:
+        log_cards(store, rows)
+    except Exception:  # the cards still reach the clinician; feedback will flag them unknown
+        _log.exception("card log not written")
+    for row in rows:
+        ops.count_card(row.finding_code)
