@@ -1,13 +1,118 @@
-"""`tonicity inspect` (placeholder until its issue lands)."""
+"""`tonicity inspect BUNDLE [--json]`: what Tonicity understood of every resource.
+
+BUNDLE is a FHIR Bundle (or single resource, or a JSON list of them) or a CDS Hooks request
+(its prefetch values and context.draftOrders are read). The table shows, per resource, what it
+was understood as (analyte, canonical value and unit, time) and whether it was used, or
+ignored and why: this is how an integrator finds LOINC and unit mapping problems.
+"""
 
 from __future__ import annotations
 
 import argparse
+import json
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import Any
+
+from cds_service.errors import UserError
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
-    pass
+    parser.add_argument("bundle", metavar="BUNDLE", help="FHIR Bundle or CDS Hooks request (JSON)")
+    parser.add_argument("--json", action="store_true", help="print the report as JSON")
+    parser.add_argument("--now", help="evaluation time, ISO 8601 (default: now)")
+    parser.add_argument("--patient", help="patient id (default: from the request or Bundle)")
+    parser.add_argument("--config", help="configuration file (for [ingest] settings)")
+
+
+def _read(path: str) -> Any:
+    p = Path(path)
+    try:
+        raw = p.read_bytes()
+    except OSError as exc:
+        raise UserError(f"cannot read {p}: {exc.strerror}") from None
+    try:
+        return json.loads(raw)
+    except (UnicodeDecodeError, json.JSONDecodeError) as exc:
+        raise UserError(f"{p} is not valid JSON: {exc}") from None
+
+
+def _now(text: str | None) -> datetime:
+    if not text:
+        return datetime.now(UTC)
+    try:
+        when = datetime.fromisoformat(text.replace("Z", "+00:00"))
+    except ValueError:
+        raise UserError(f"--now {text!r} is not an ISO 8601 date-time") from None
+    return when if when.tzinfo else when.replace(tzinfo=UTC)
+
+
+def split_input(data: Any) -> tuple[list[Any], list[Any], str | None]:
+    """(resources, draft orders, patient id) from a request, Bundle, resource or list."""
+    if isinstance(data, list):
+        return data, [], None
+    if not isinstance(data, dict):
+        raise UserError("input is neither a FHIR resource nor a CDS Hooks request")
+    if "hook" in data:
+        prefetch = data.get("prefetch")
+        context = data.get("context") if isinstance(data.get("context"), dict) else {}
+        resources = list(prefetch.values()) if isinstance(prefetch, dict) else []
+        drafts = context.get("draftOrders")
+        pid = context.get("patientId")
+        return (
+            resources,
+            [drafts] if drafts is not None else [],
+            pid if isinstance(pid, str) else None,
+        )
+    if "resourceType" not in data:
+        raise UserError("input has no resourceType and no hook: not FHIR, not CDS Hooks")
+    return [data], [], None
+
+
+def _format_value(line: Any) -> str:
+    if line.value is None:
+        return line.raw or ""
+    return f"{line.value:g} {line.unit}" + (f"  (sent {line.raw})" if line.raw else "")
+
+
+def table(report: Any) -> str:
+    rows = [("RESOURCE", "UNDERSTOOD AS", "VALUE", "TIME", "USED", "WHY / NOTE")]
+    for line in report.lines:
+        rows.append(
+            (
+                line.resource,
+                line.understood_as,
+                _format_value(line),
+                line.time.strftime("%Y-%m-%d %H:%M") if line.time else "",
+                "used" if line.used else "ignored",
+                line.reason,
+            )
+        )
+    widths = [min(max(len(r[i]) for r in rows), 48) for i in range(5)]
+    out = []
+    for row in rows:
+        cells = [row[i][: widths[i]].ljust(widths[i]) for i in range(5)]
+        out.append("  ".join([*cells, row[5]]).rstrip())
+    used = sum(1 for line in report.lines if line.used)
+    out.append(f"\n{used} used, {len(report.lines) - used} ignored")
+    return "\n".join(out)
 
 
 def run(args: argparse.Namespace) -> int:
-    raise SystemExit("tonicity inspect: not implemented yet")
+    from cds_service.config import IngestSettings, load_settings
+    from cds_service.fhir import build_context
+
+    resources, drafts, pid = split_input(_read(args.bundle))
+    settings = load_settings(args.config).ingest if args.config else IngestSettings()
+    result = build_context(
+        resources,
+        now=_now(args.now),
+        settings=settings,
+        patient_id=args.patient or pid,
+        draft_orders=drafts,
+    )
+    if args.json:
+        print(json.dumps(result.report.to_dict(), indent=2))
+    else:
+        print(table(result.report))
+    return 0

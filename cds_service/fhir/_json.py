@@ -1,0 +1,69 @@
+"""Defensive reading of raw FHIR JSON: any shape in, typed values or None out."""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Iterator
+from typing import Any
+
+
+def obj(value: Any) -> dict[str, Any]:
+    return value if isinstance(value, dict) else {}
+
+
+def items(value: Any) -> list[Any]:
+    return value if isinstance(value, list) else []
+
+
+def text(value: Any) -> str | None:
+    return value if isinstance(value, str) and value.strip() else None
+
+
+def number(value: Any) -> float | None:
+    if isinstance(value, bool):
+        return None
+    if isinstance(value, int | float):
+        out = float(value)
+    elif isinstance(value, str):
+        try:
+            out = float(value.strip())
+        except ValueError:
+            return None
+    else:
+        return None
+    return out if math.isfinite(out) else None
+
+
+def codings(concept: Any) -> Iterator[tuple[str, str, str]]:
+    """(system, code, display) of every coding in a CodeableConcept (missing parts as "")."""
+    for coding in items(obj(concept).get("coding")):
+        c = obj(coding)
+        code = text(c.get("code"))
+        yield (
+            text(c.get("system")) or "",
+            code.strip() if code else "",
+            text(c.get("display")) or "",
+        )
+
+
+def concept_text(concept: Any) -> str:
+    """Best human text of a CodeableConcept: its text, else the first coding display."""
+    c = obj(concept)
+    found = text(c.get("text"))
+    if found:
+        return found
+    for _system, code, display in codings(c):
+        if display:
+            return display
+        if code:
+            return code
+    return ""
+
+
+def ref_key(resource: dict[str, Any]) -> str:
+    """'ResourceType/id' for a resource (id may be empty)."""
+    return f"{text(resource.get('resourceType')) or '?'}/{text(resource.get('id')) or ''}"
+
+
+def reference(value: Any) -> str | None:
+    return text(obj(value).get("reference"))

@@ -1,0 +1,130 @@
+"""Medication names: RxNorm codes and lowercase generic names from whatever a record sends."""
+
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass
+from functools import cache
+from typing import Any
+
+from cds_service.fhir._data import load
+from cds_service.fhir._json import codings, concept_text, items, obj, text
+
+RXNORM_SYSTEM = "http://www.nlm.nih.gov/research/umls/rxnorm"
+_BRACKETS = re.compile(r"\[[^\]]*\]|\([^)]*\)")
+_SPLIT = re.compile(r"\s+/\s+|\s+\+\s+|\s+and\s+|[,;]")
+_TOKEN = re.compile(r"[a-z][a-z'\-]*|\S+")
+
+
+@dataclass(frozen=True, slots=True)
+class MedicationNames:
+    names: tuple[str, ...]
+    rxnorm: tuple[str, ...]
+    display: str
+    texts: tuple[str, ...]  # every text seen (concept text, coding displays, ingredients)
+
+
+@cache
+def _vocab() -> tuple[dict[str, str], frozenset[str], frozenset[str]]:
+    data = load("medications")
+    names = data["names"]
+    return (
+        dict(data["rxnorm_ingredients"]),
+        frozenset(names["salt_words"]),
+        frozenset(names["form_words"]),
+    )
+
+
+def generic_names(label: str) -> list[str]:
+    """Lowercase generic names in a product label.
+
+    "Hydrochlorothiazide 25 MG Oral Tablet" -> ["hydrochlorothiazide"];
+    "Lisinopril 20 MG / Hydrochlorothiazide 12.5 MG Oral Tablet" -> both;
+    "Sertraline hydrochloride 50 mg" -> ["sertraline hydrochloride", "sertraline"].
+    """
+    _, salts, forms = _vocab()
+    out: list[str] = []
+    for part in _SPLIT.split(_BRACKETS.sub(" ", label.lower())):
+        words: list[str] = []
+        for token in part.split():
+            if token[0].isdigit() or "%" in token or token in forms:
+                break
+            words.append(token.strip(".:"))
+        words = [w for w in words if w]
+        if not words:
+            continue
+        full = " ".join(words)
+        core = [words[0], *[w for w in words[1:] if w not in salts]]
+        for name in (full, " ".join(core)):
+            if len(name) >= 3 and name not in out:
+                out.append(name)
+    return out
+
+
+def _contained(resource: dict[str, Any], ref: str) -> dict[str, Any] | None:
+    wanted = ref[1:]
+    for c in items(resource.get("contained")):
+        c = obj(c)
+        if c.get("resourceType") == "Medication" and c.get("id") == wanted:
+            return c
+    return None
+
+
+def medication_of(resource: dict[str, Any], index: dict[str, dict[str, Any]]) -> dict[str, Any]:
+    """The Medication a request/statement/administration names, as a concept holder.
+
+    Returns ``{"code": CodeableConcept, "ingredient": [...]}``: for medicationCodeableConcept
+    just the concept; for medicationReference the referenced Medication (contained ``#id``,
+    or in the same bundle by ``Medication/id`` or full URL), or its display as text.
+    """
+    concept = resource.get("medicationCodeableConcept")
+    if isinstance(concept, dict):
+        return {"code": concept}
+    ref_obj = obj(resource.get("medicationReference"))
+    ref = text(ref_obj.get("reference"))
+    med: dict[str, Any] | None = None
+    if ref:
+        if ref.startswith("#"):
+            med = _contained(resource, ref)
+        else:
+            med = index.get(ref)
+            if med is None and "Medication/" in ref:
+                med = index.get("Medication/" + ref.rsplit("Medication/", 1)[1])
+    if med is not None:
+        return med
+    display = text(ref_obj.get("display"))
+    return {"code": {"text": display}} if display else {}
+
+
+def ingredient_concepts(med: dict[str, Any]) -> list[dict[str, Any]]:
+    return [
+        obj(obj(i).get("itemCodeableConcept"))
+        for i in items(med.get("ingredient"))
+        if isinstance(obj(i).get("itemCodeableConcept"), dict)
+    ]
+
+
+def names_of(med: dict[str, Any]) -> MedicationNames:
+    """Generic names and RxNorm codes of a Medication-like holder (see :func:`medication_of`)."""
+    rx_table, _, _ = _vocab()
+    rxnorm: list[str] = []
+    texts: list[str] = []
+    names: list[str] = []
+    for concept in [obj(med.get("code")), *ingredient_concepts(med)]:
+        for system, code, display in codings(concept):
+            if system == RXNORM_SYSTEM and code:
+                if code not in rxnorm:
+                    rxnorm.append(code)
+                if code in rx_table and rx_table[code] not in names:
+                    names.append(rx_table[code])
+            if display:
+                texts.append(display)
+        label = text(concept.get("text"))
+        if label:
+            texts.append(label)
+    for label in texts:
+        for name in generic_names(label):
+            if name not in names:
+                names.append(name)
+    display = concept_text(med.get("code")) or (texts[0] if texts else "")
+    return MedicationNames(tuple(names), tuple(rxnorm), display, tuple(texts))

@@ -1,0 +1,25 @@
+"""Patient -> PatientFacts (age at evaluation time, administrative gender)."""
+
+from __future__ import annotations
+
+from datetime import datetime
+from typing import Any
+
+from cds_service.clinical.context import PatientFacts, Sex
+from cds_service.fhir._json import text
+from cds_service.fhir.times import age_years, parse_birth_date
+
+_SEX = {"male": Sex.MALE, "female": Sex.FEMALE}
+
+
+def facts(resource: dict[str, Any] | None, patient_id: str | None, now: datetime) -> PatientFacts:
+    if resource is None:
+        return PatientFacts(patient_id=patient_id, age_years=None, sex=Sex.UNKNOWN)
+    birth = parse_birth_date(resource.get("birthDate"))
+    age = age_years(birth, now) if birth is not None and birth <= now.date() else None
+    gender = (text(resource.get("gender")) or "").lower()
+    return PatientFacts(
+        patient_id=patient_id or text(resource.get("id")),
+        age_years=round(age, 2) if age is not None else None,
+        sex=_SEX.get(gender, Sex.UNKNOWN),
+    )
