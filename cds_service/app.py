@@ -27,8 +27,10 @@ from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
+from cds_service import logs, ops
 from cds_service.config import Settings
 from cds_service.errors import UserError
+from cds_service.hooks.auth import Authenticator, AuthError
 from cds_service.hooks.registry import SERVICES, discovery
 from cds_service.hooks.service import HookError, evaluate
 from cds_service.store import Store
@@ -101,6 +103,32 @@ def _local_trial(settings: Settings) -> bool:
     return settings.local_trial or not settings.auth.required
 
 
+class _RequestId:
+    """A request id per call (``X-Request-ID`` kept when well formed), in logs and response."""
+
+    def __init__(self, app: Callable[..., Awaitable[None]]) -> None:
+        self.app = app
+
+    async def __call__(self, scope: MutableMapping[str, Any], receive: Any, send: Any) -> None:
+        if scope["type"] != "http":
+            await self.app(scope, receive, send)
+            return
+        incoming = dict(scope.get("headers") or []).get(b"x-request-id", b"")
+        rid, token = logs.set_request_id(incoming.decode("latin-1") or None)
+
+        async def send_with_id(message: MutableMapping[str, Any]) -> None:
+            if message["type"] == "http.response.start":
+                headers = list(message.get("headers", []))
+                headers.append((b"x-request-id", rid.encode()))
+                message["headers"] = headers
+            await send(message)
+
+        try:
+            await self.app(scope, receive, send_with_id)
+        finally:
+            logs.reset_request_id(token)
+
+
 class _LocalTrialHeader:
     """Adds the local-trial warning header to every response (pure ASGI, streams untouched)."""
 
@@ -122,26 +150,6 @@ class _LocalTrialHeader:
         await self.app(scope, receive, send_with_header)
 
 
-class _AnonymousAuthenticator:
-    """Stand-in used only while the security module is absent: lets nothing reach a FHIR server."""
-
-    async def authenticate(self, authorization: str | None, endpoint_url: str) -> None:
-        return None
-
-    def fhir_server_allowed(self, caller: object, fhir_server: str) -> bool:
-        return False
-
-
-def _authenticator(settings: Settings, store: Store, http: httpx.AsyncClient) -> Any:
-    try:
-        from cds_service.hooks.auth import Authenticator
-    except ImportError:
-        if settings.auth.required:
-            raise RuntimeError("auth.required is set but the authenticator is missing") from None
-        return _AnonymousAuthenticator()
-    return Authenticator(settings, store, http)
-
-
 def create_app(settings: Settings) -> FastAPI:
     """The service for these settings; resources are opened and closed by the lifespan."""
 
@@ -160,7 +168,7 @@ def create_app(settings: Settings) -> FastAPI:
             app.state.store = store
             app.state.http = http
             app.state.thresholds = load_thresholds(settings.clinical)
-            app.state.authenticator = _authenticator(settings, store, http)
+            app.state.authenticator = Authenticator(settings, store, http)
             yield
         finally:
             await http.aclose()
@@ -174,6 +182,7 @@ def create_app(settings: Settings) -> FastAPI:
     app.state.settings = settings
     if _local_trial(settings):
         app.add_middleware(_LocalTrialHeader)
+    app.add_middleware(_RequestId)
     _install_error_handlers(app)
     _install_routes(app, settings)
     _include_routers(app)
@@ -213,11 +222,8 @@ async def _authenticate(request: Request, settings: Settings) -> Any:
     endpoint = f"{settings.server.public_base_url}{request.url.path}"
     try:
         return await authenticator.authenticate(request.headers.get("authorization"), endpoint)
-    except Exception as exc:
-        if type(exc).__name__ != "AuthError":
-            raise
-        reason = getattr(exc, "reason", None) or str(exc) or "authentication failed"
-        raise _Unauthorized(reason) from None
+    except AuthError as exc:
+        raise _Unauthorized(exc.reason or "authentication failed") from None
 
 
 class _Unauthorized(Exception):
@@ -298,8 +304,6 @@ def _install_routes(app: FastAPI, settings: Settings) -> None:
 
 
 def _observe(service_id: str, status: int, seconds: float) -> None:
-    from cds_service import ops
-
     ops.observe_request(service_id if service_id in SERVICES else "unknown", status, seconds)
 
 
@@ -313,25 +317,24 @@ def _audit(
 ) -> None:
     """One audit line per hook call: client, service, finding codes, latency, status."""
     try:
-        from cds_service import logs
-    except ImportError:
-        return
-    try:
+        patient_hash = (
+            logs.hash_patient_id(settings.logging.patient_id_salt, outcome.patient_id)
+            if outcome
+            else None
+        )
         logs.audit(
             client=getattr(caller, "issuer", None),
-            tenant=getattr(caller, "tenant", None),
             service=service_id if service_id in SERVICES else "unknown",
-            codes=list(outcome.codes) if outcome else [],
-            latency_ms=round(seconds * 1000, 1),
+            finding_codes=list(outcome.codes) if outcome else [],
+            latency_ms=seconds * 1000,
             status=status,
+            patient_hash=patient_hash,
         )
     except Exception:  # the audit line must never change the answer
         _log.exception("audit line not written")
 
 
 def _include_routers(app: FastAPI) -> None:
-    from cds_service import ops
-
     app.include_router(ops.router)
     try:
         from cds_service.web import create_router

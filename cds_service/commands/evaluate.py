@@ -1,13 +1,102 @@
-"""`tonicity evaluate` (placeholder until its issue lands)."""
+"""`tonicity evaluate PATH [--hook HOOK] [--draft-orders PATH] [--now ISO] [--config FILE]`.
+
+Prints, as JSON on stdout, exactly the response body the service would return. PATH is a CDS
+Hooks request (it has ``hook``) or a FHIR Bundle of one patient's record; for a Bundle the
+command acts as the CDS client and fills the service's own prefetch templates from it. For
+order hooks every draft order in ``--draft-orders`` counts as selected. Nothing is stored and
+no network is used: what the request does not carry is "not available".
+"""
 
 from __future__ import annotations
 
 import argparse
+import json
+import sys
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import Any
+
+from cds_service.errors import UserError
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
-    pass
+    parser.add_argument("path", metavar="PATH", help="CDS Hooks request or patient FHIR Bundle")
+    parser.add_argument(
+        "--hook",
+        default=None,
+        help="hook to play for a Bundle: patient-view (default), order-select, order-sign",
+    )
+    parser.add_argument(
+        "--draft-orders",
+        metavar="PATH",
+        default=None,
+        help="draft orders (Bundle, JSON list or one resource) for order hooks; all selected",
+    )
+    parser.add_argument(
+        "--now", metavar="ISO", default=None, help="evaluation time, ISO 8601 (default: now)"
+    )
+    parser.add_argument("--config", metavar="FILE", default=None, help="TOML configuration")
+
+
+def read_json(path: str, what: str) -> Any:
+    try:
+        raw = Path(path).read_bytes()
+    except OSError as exc:
+        raise UserError(f"cannot read {what} {path}: {exc.strerror or exc}") from None
+    try:
+        return json.loads(raw)
+    except (UnicodeDecodeError, json.JSONDecodeError) as exc:
+        raise UserError(f"{what} {path} is not valid JSON: {exc}") from None
+
+
+def parse_now(text: str | None) -> datetime:
+    if text is None:
+        return datetime.now(UTC)
+    try:
+        value = datetime.fromisoformat(text)
+    except ValueError:
+        raise UserError(f"--now {text!r} is not an ISO 8601 date-time") from None
+    return value if value.tzinfo else value.replace(tzinfo=UTC)
+
+
+def build_body(args: argparse.Namespace) -> dict[str, Any]:
+    from cds_service.hooks.client import build_request, draft_resources
+
+    data = read_json(args.path, "input")
+    if not isinstance(data, dict):
+        raise UserError(f"{args.path} is neither a CDS Hooks request nor a FHIR Bundle")
+    if "hook" in data:
+        if args.hook and args.hook != data["hook"]:
+            raise UserError(f"--hook {args.hook} differs from the request's hook {data['hook']!r}")
+        return data
+    if data.get("resourceType") != "Bundle":
+        raise UserError(f"{args.path} is neither a CDS Hooks request nor a FHIR Bundle")
+    drafts = None
+    if args.draft_orders:
+        drafts = draft_resources(read_json(args.draft_orders, "draft orders"))
+    return build_request(data, args.hook or "patient-view", drafts)
 
 
 def run(args: argparse.Namespace) -> int:
-    raise SystemExit("tonicity evaluate: not implemented yet")
+    from cds_service.clinical.thresholds import load_thresholds
+    from cds_service.config import load_settings
+    from cds_service.hooks.service import HookError, evaluate_request_sync
+
+    settings = load_settings(args.config)
+    now = parse_now(args.now)
+    body = build_body(args)
+    try:
+        thresholds = load_thresholds(settings.clinical)
+    except ValueError as exc:
+        raise UserError(f"invalid clinical thresholds in the configuration: {exc}") from None
+    try:
+        response = evaluate_request_sync(body, settings=settings, thresholds=thresholds, now=now)
+    except HookError as exc:
+        raise UserError(f"{exc.status}: {exc.message}") from None
+    except Exception as exc:  # never a traceback: say what failed, in one line
+        raise UserError(
+            f"could not evaluate {args.path} ({type(exc).__name__}: {exc})".replace("\n", " ")
+        ) from None
+    json.dump(response, sys.stdout, indent=2, ensure_ascii=False)
+    sys.stdout.write("\n")
+    return 0

@@ -1,13 +1,111 @@
-"""`tonicity serve` (placeholder until its issue lands)."""
+"""`tonicity serve [--config FILE] [--host H] [--port P]`: run the CDS Hooks service.
+
+Defaults: 127.0.0.1:8080 and a SQLite store ``tonicity.db`` in the working folder. Without a
+config file the service runs as a local trial: authentication off, allowed only on a loopback
+address, announced loudly at start and in a header on every response. Serving without
+authentication on any other address needs
+``--i-understand-this-exposes-unauthenticated-patient-data``.
+"""
 
 from __future__ import annotations
 
 import argparse
+import ipaddress
+import sys
+
+from cds_service.errors import UserError
+
+UNSAFE_FLAG = "--i-understand-this-exposes-unauthenticated-patient-data"
+GRACEFUL_SHUTDOWN_SECONDS = 15
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
-    pass
+    parser.add_argument("--config", metavar="FILE", default=None, help="TOML configuration")
+    parser.add_argument("--host", default=None, help="address to bind (default 127.0.0.1)")
+    parser.add_argument("--port", type=int, default=None, help="port (default 8080)")
+    parser.add_argument(
+        UNSAFE_FLAG,
+        dest="allow_unauthenticated",
+        action="store_true",
+        help="allow serving without authentication on a non-loopback address (never with "
+        "real patient data)",
+    )
+
+
+def is_loopback(host: str) -> bool:
+    if host.strip("[]").lower() == "localhost":
+        return True
+    try:
+        return ipaddress.ip_address(host.strip("[]")).is_loopback
+    except ValueError:
+        return False
+
+
+def warning_text(host: str, port: int) -> str:
+    bar = "!" * 78
+    return "\n".join(
+        [
+            bar,
+            "!! TONICITY LOCAL TRIAL: AUTHENTICATION IS OFF",
+            f"!! Anyone who can reach http://{host}:{port} can call the service and read",
+            "!! what it stores. Do not use with real patient data. Start with --config and",
+            "!! [auth] required = true for any real deployment.",
+            bar,
+        ]
+    )
+
+
+def resolve(args: argparse.Namespace):  # type: ignore[no-untyped-def]
+    """Settings, host and port for these arguments; refuses unsafe combinations."""
+    from cds_service.config import load_settings
+
+    if args.port is not None and not 1 <= args.port <= 65535:
+        raise UserError(f"--port {args.port} is not a port number (1-65535)")
+    if args.config:
+        settings = load_settings(args.config)
+    else:
+        settings = load_settings(None, local_trial=True, auth={"required": False})
+    host = args.host or settings.server.host
+    port = args.port or settings.server.port
+    overrides: dict[str, object] = {"host": host, "port": port}
+    if not args.config:
+        overrides["public_base_url"] = f"http://{host}:{port}"
+    settings = settings.model_copy(update={"server": settings.server.model_copy(update=overrides)})
+    if not settings.auth.required:
+        if not is_loopback(host) and not args.allow_unauthenticated:
+            raise UserError(
+                f"refusing to serve without authentication on {host}: bind 127.0.0.1, "
+                f"configure [auth], or pass {UNSAFE_FLAG}"
+            )
+        settings = settings.model_copy(update={"local_trial": True})
+    return settings, host, port
 
 
 def run(args: argparse.Namespace) -> int:
-    raise SystemExit("tonicity serve: not implemented yet")
+    import uvicorn
+
+    from cds_service.app import create_app
+
+    settings, host, port = resolve(args)
+    try:
+        from cds_service import logs
+
+        logs.configure_logging(settings)
+    except ImportError:
+        pass
+    if not settings.auth.required:
+        print(warning_text(host, port), file=sys.stderr, flush=True)
+    config = uvicorn.Config(
+        create_app(settings),
+        host=host,
+        port=port,
+        timeout_graceful_shutdown=GRACEFUL_SHUTDOWN_SECONDS,
+        log_config=None,
+        server_header=False,
+    )
+    server = uvicorn.Server(config)
+    try:
+        server.run()
+    except OSError as exc:
+        raise UserError(f"cannot serve on {host}:{port}: {exc.strerror or exc}") from None
+    return 0

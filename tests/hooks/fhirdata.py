@@ -6,10 +6,11 @@ standard) and units UCUM (open standard).
 
 from __future__ import annotations
 
-from datetime import datetime, timedelta
+from datetime import UTC, datetime, timedelta
 from typing import Any
 
-NOW = datetime.fromisoformat("2026-11-20T12:00:00+00:00")
+#: The service evaluates at the real current time, so the records are dated relative to it.
+NOW = datetime.now(UTC).replace(microsecond=0)
 PATIENT_ID = "lvh-pt-1042"
 FHIR_BASE = "https://fhir.larkspur-valley.example.org/r4"
 
