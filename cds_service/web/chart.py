@@ -1,0 +1,232 @@
+"""The sodium trend chart: a snapshot payload drawn as SVG by matplotlib (Agg, SVG output).
+
+matplotlib is imported on first use, not when the app starts. Every drawn thing a test or a
+stylesheet may look for carries an SVG id (matplotlib ``gid``):
+
+- ``sodium-point-<i>``: one group per sodium result, in time order;
+- ``limit-band``: the shaded correction-limit band from the episode start;
+- ``limit-24h`` / ``limit-48h``: the limit lines (start value + limit);
+- ``marker-<kind>-<i>``: measured osmolality and urine studies (kind as in the payload);
+- ``start-<i>``: vertical line at a medication or infusion start or a draft order.
+"""
+
+from __future__ import annotations
+
+import io
+import threading
+from datetime import datetime, timedelta
+from typing import Any
+
+# Palette shared with the stylesheet (cds_service/web/static/tonicity.css).
+INK = "#1d2b2a"
+TEAL = "#0b5d5e"
+SAND = "#e9dcc3"
+CLAY = "#a4471f"
+PLUM = "#5b3a6e"
+GRID = "#d6d0c4"
+
+_MARKER_STYLE = {
+    "osmolality": ("^", PLUM),
+    "urine_osmolality": ("v", "#8a5a00"),
+    "urine_sodium": ("D", "#3d5a80"),
+}
+
+_lock = threading.Lock()  # pyplot-free, but font cache and rcParams are process-wide
+
+
+def _t(s: str) -> datetime:
+    return datetime.fromisoformat(s)
+
+
+def _num(t: datetime) -> float:
+    """Date as matplotlib's day number (annotations do not convert units themselves)."""
+    from matplotlib.dates import date2num
+
+    return float(date2num(t))
+
+
+def render_trend_svg(payload: dict[str, Any]) -> str:
+    """Return a standalone SVG document (text) of the payload's sodium trend."""
+    import matplotlib
+
+    matplotlib.use("Agg", force=False)
+    import matplotlib.dates as mdates
+    from matplotlib.figure import Figure
+
+    with (
+        _lock,
+        matplotlib.rc_context(
+            {
+                "svg.fonttype": "none",  # text stays text: searchable, scalable
+                "svg.hashsalt": "tonicity",  # stable ids between renders
+                "font.family": "DejaVu Sans",
+                "font.size": 10,
+                "axes.edgecolor": INK,
+                "axes.labelcolor": INK,
+                "xtick.color": INK,
+                "ytick.color": INK,
+            }
+        ),
+    ):
+        fig = Figure(figsize=(8.6, 4.4), dpi=100)
+        ax = fig.add_subplot()
+        ax.set_facecolor("#fffdf8")
+        fig.patch.set_facecolor("white")
+        _draw(ax, payload)
+        locator = mdates.AutoDateLocator(minticks=4, maxticks=9)
+        ax.xaxis.set_major_locator(locator)
+        ax.xaxis.set_major_formatter(mdates.DateFormatter("%d %b\n%H:%M"))
+        ax.set_xlabel("Time (UTC)")
+        ax.set_ylabel("Serum sodium (mmol/L)")
+        ax.set_title("Serum sodium and correction limits", loc="left", color=INK, fontsize=12)
+        ax.grid(True, color=GRID, linewidth=0.6)
+        _legend_extras(ax, payload.get("sodium") or [])
+        ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), fontsize=8, frameon=False)
+        fig.subplots_adjust(left=0.08, right=0.72, top=0.88, bottom=0.17)
+        out = io.StringIO()
+        fig.savefig(out, format="svg", metadata={"Date": None, "Creator": "Tonicity"})
+    return out.getvalue()
+
+
+def _draw(ax: Any, payload: dict[str, Any]) -> None:
+    sodium = payload.get("sodium") or []
+    times = [_t(p["time"]) for p in sodium]
+    values = [float(p["value"]) for p in sodium]
+    if times:
+        ax.plot(times, values, color=TEAL, linewidth=1.6, zorder=3, label="Serum sodium")
+    for i, (t, v, p) in enumerate(zip(times, values, sodium, strict=True)):
+        note = p.get("note") or ""
+        hollow = "preliminary" in note
+        marker = "s" if "whole blood" in note else "o"
+        ax.plot(
+            [t],
+            [v],
+            linestyle="none",
+            marker=marker,
+            markersize=7,
+            markeredgewidth=1.6,
+            markeredgecolor=TEAL,
+            markerfacecolor="white" if hollow else TEAL,
+            zorder=4,
+            gid=f"sodium-point-{i}",
+        )
+    _draw_band(ax, payload.get("limits"), times)
+    _draw_markers(ax, payload.get("markers") or [])
+    _draw_starts(ax, payload.get("starts") or [], times)
+    if values:
+        lo, hi = min(values), max(values)
+        limits = payload.get("limits") or {}
+        if limits.get("start_value") is not None:
+            hi = max(hi, float(limits["start_value"]) + float(limits["limit_48h"]))
+        ax.set_ylim(lo - 4, hi + 4)
+
+
+def _legend_extras(ax: Any, sodium: list[dict[str, Any]]) -> None:
+    """Legend entries for the point shapes that carry a source note, when present."""
+    notes = " ".join(str(p.get("note") or "") for p in sodium)
+    if "preliminary" in notes:
+        ax.plot(
+            [],
+            [],
+            linestyle="none",
+            marker="o",
+            markerfacecolor="white",
+            markeredgecolor=TEAL,
+            label="Preliminary result",
+        )
+    if "whole blood" in notes:
+        ax.plot([], [], linestyle="none", marker="s", color=TEAL, label="Whole blood (direct ISE)")
+
+
+def _draw_band(ax: Any, limits: dict[str, Any] | None, times: list[datetime]) -> None:
+    if not limits or not limits.get("episode_start") or limits.get("start_value") is None:
+        return
+    t0 = _t(limits["episode_start"])
+    v0 = float(limits["start_value"])
+    l24, l48 = float(limits["limit_24h"]), float(limits["limit_48h"])
+    t24, t48 = t0 + timedelta(hours=24), t0 + timedelta(hours=48)
+    ax.fill_between(
+        [t0, t24, t24, t48],
+        [v0, v0, v0, v0],
+        [v0 + l24, v0 + l24, v0 + l48, v0 + l48],
+        color=SAND,
+        alpha=0.75,
+        linewidth=0,
+        zorder=1,
+        gid="limit-band",
+        label="Allowed rise from episode start",
+    )
+    for hours, (a, b), limit, style in ((24, (t0, t24), l24, "--"), (48, (t24, t48), l48, ":")):
+        ax.plot(
+            [a, b],
+            [v0 + limit] * 2,
+            color=CLAY,
+            linestyle=style,
+            linewidth=1.3,
+            zorder=2,
+            gid=f"limit-{hours}h",
+            label=f"{hours}-h limit (+{limit:g} mmol/L)",
+        )
+    ax.axvline(t0, color=CLAY, linewidth=0.8, alpha=0.6, zorder=1)
+
+
+def _draw_markers(ax: Any, markers: list[dict[str, Any]]) -> None:
+    seen: set[str] = set()
+    trans = ax.get_xaxis_transform()  # x in data, y in axes fraction
+    for i, m in enumerate(markers):
+        kind = str(m.get("kind", "other"))
+        shape, colour = _MARKER_STYLE.get(kind, ("P", INK))
+        t = _t(m["time"])
+        label = None if kind in seen else f"{m.get('label', kind)} ({m.get('unit', '')})"
+        seen.add(kind)
+        y = 0.06 + 0.07 * list(_MARKER_STYLE).index(kind) if kind in _MARKER_STYLE else 0.27
+        ax.plot(
+            [t],
+            [y],
+            transform=trans,
+            marker=shape,
+            color=colour,
+            markersize=8,
+            linestyle="none",
+            zorder=5,
+            gid=f"marker-{kind}-{i}",
+            label=label,
+        )
+        ax.annotate(
+            f"{float(m['value']):g}",
+            (_num(t), y),
+            xycoords=trans,
+            xytext=(6, -3),
+            textcoords="offset points",
+            fontsize=7.5,
+            color=colour,
+        )
+
+
+def _draw_starts(ax: Any, starts: list[dict[str, Any]], times: list[datetime]) -> None:
+    trans = ax.get_xaxis_transform()
+    labelled = False
+    for i, s in enumerate(starts):
+        t = _t(s["time"])
+        colour = CLAY if s.get("associated") else "#6b6b6b"
+        ax.axvline(
+            t,
+            color=colour,
+            linewidth=1.1,
+            linestyle="-.",
+            zorder=2,
+            gid=f"start-{i}",
+            label=None if labelled else "Medication or infusion start",
+        )
+        labelled = True
+        ax.text(
+            _num(t),
+            0.98,
+            f" {s.get('label', '')}"[:40],
+            transform=trans,
+            rotation=90,
+            va="top",
+            ha="right",
+            fontsize=7.5,
+            color=colour,
+        )
