@@ -8,7 +8,7 @@ What never reaches a log: bearer tokens (FHIR access tokens or client JWTs), lab
 names, raw patient ids (only ``hash_patient_id``), trend-link tokens. The formatter also masks
 anything shaped like a JWT, a ``Bearer`` credential or a ``/trend/<token>`` path, as a second
 line of defence; exception messages are left out (they may quote input), only the type and the
-stack frames are written.
+stack frames (file, line, function; no source text) are written.
 """
 
 from __future__ import annotations
@@ -82,7 +82,10 @@ class JsonFormatter(logging.Formatter):
                 data.setdefault(str(key), value)
         if record.exc_info and record.exc_info[0] is not None:
             data["exception"] = record.exc_info[0].__name__
-            data["stack"] = "".join(traceback.format_tb(record.exc_info[2]))
+            data["stack"] = [
+                f"{frame.filename}:{frame.lineno} in {frame.name}"
+                for frame in traceback.extract_tb(record.exc_info[2])
+            ]
         return scrub(json.dumps(data, default=str, ensure_ascii=False))
 
 
