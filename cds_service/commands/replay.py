@@ -20,7 +20,6 @@ service's own Bundle helper builds; without that helper they are skipped and rep
 from __future__ import annotations
 
 import argparse
-import importlib
 import json
 import re
 import sys
@@ -168,20 +167,13 @@ def _shift_date(value: Any, delta: timedelta) -> Any:
 
 
 def bundle_request_builder() -> Callable[..., dict[str, Any]] | None:
-    """The service's ``request_from_bundle(bundle, hook)`` helper, when the hooks layer has it."""
-    for module_name in (
-        "cds_service.hooks",
-        "cds_service.hooks.bundle",
-        "cds_service.hooks.client",
-    ):
-        try:
-            module = importlib.import_module(module_name)
-        except ImportError:
-            continue
-        builder = getattr(module, "request_from_bundle", None)
-        if callable(builder):
-            return builder
-    return None
+    """The service's own CDS-client helper ``build_request(bundle, hook)``, the one
+    ``tonicity evaluate`` uses for a Bundle (None when this version has none)."""
+    try:
+        from cds_service.hooks.client import build_request
+    except ImportError:
+        return None
+    return build_request
 
 
 def _load_request(folder: Path, exp: Expectation) -> tuple[dict[str, Any] | None, str | None]:
@@ -202,7 +194,7 @@ def _load_request(folder: Path, exp: Expectation) -> tuple[dict[str, Any] | None
         return None, "Bundle sample; this version has no Bundle-to-request helper"
     try:
         return builder(body, exp.hook), None
-    except ValueError as exc:
+    except (UserError, ValueError) as exc:
         return None, f"cannot build a {exp.hook} request: {exc}"
 
 
