@@ -1,0 +1,101 @@
+"""The clinical core's two entry points: the patient-view work-up and the order checks.
+
+Both apply the adult-scope gate first (under 18 years: one OUT_OF_SCOPE finding and nothing
+else), add correction-rate surveillance and the results that were not used (IMPLAUSIBLE),
+and return at most one finding per code.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterable
+
+from cds_service.clinical.context import Analyte, ClinicalContext, RejectedResult
+from cds_service.clinical.correction import correction_finding
+from cds_service.clinical.findings import Finding, FindingCode, InputUsed, Urgency
+from cds_service.clinical.notes import CAUTION, LABELS, num
+from cds_service.clinical.orders import order_findings
+from cds_service.clinical.thresholds import Thresholds
+from cds_service.clinical.workup import workup_findings
+
+__all__ = ["evaluate_orders", "evaluate_workup"]
+
+
+def _out_of_scope(ctx: ClinicalContext, th: Thresholds) -> Finding | None:
+    age = ctx.patient.age_years
+    if age is None or age >= th.adult_age_years:
+        return None
+    return Finding(
+        code=FindingCode.OUT_OF_SCOPE,
+        urgency=Urgency.INFO,
+        summary=(f"Patient is {num(age, 0)} years old: Tonicity covers adults "
+                 f"({num(th.adult_age_years, 0)} and over) and made no calculation"),
+        details=("Adult formulas, thresholds and body-water fractions do not apply to "
+                 "children; use a paediatric protocol.",),
+        sources=(th.cite("adult_age_years"),),
+        cautions=(CAUTION,),
+    )
+
+
+def _implausible(rejected: Iterable[RejectedResult]) -> Finding | None:
+    items = list(rejected)
+    if not items:
+        return None
+    first = items[0]
+    label = LABELS[first.analyte] if first.analyte else "A result"
+    more = f" and {len(items) - 1} more" if len(items) > 1 else ""
+    summary = f"{label} '{first.raw}' not used: {first.reason}"
+    if len(summary) + len(more) >= 140:
+        summary = summary[: 136 - len(more)].rstrip() + "…"
+    return Finding(
+        code=FindingCode.IMPLAUSIBLE,
+        urgency=Urgency.INFO,
+        summary=summary + more,
+        details=tuple(
+            f"- {LABELS[r.analyte] if r.analyte else 'Result'} {r.raw} ({r.source_id}): "
+            f"{r.reason}" for r in items
+        ),
+        inputs=tuple(
+            InputUsed(label=LABELS[r.analyte] if r.analyte else "Result", value=r.raw, unit="",
+                      time=r.time, source_id=r.source_id, note=r.reason)
+            for r in items
+        ),
+        next_steps=("Check the result with the laboratory and repeat the test if needed.",),
+        cautions=(CAUTION,),
+    )
+
+
+def _relevant_rejections(ctx: ClinicalContext, others: list[Finding]) -> list[RejectedResult]:
+    """All rejections when something else is reported; otherwise only those that might hide
+    a low sodium (sodium or unknown analyte), so a normal chart stays quiet."""
+    if others:
+        return list(ctx.rejected)
+    return [r for r in ctx.rejected if r.analyte in (None, Analyte.SODIUM)]
+
+
+def _assemble(ctx: ClinicalContext, th: Thresholds, found: list[Finding]) -> list[Finding]:
+    correction = correction_finding(ctx, th)
+    if correction is not None:
+        found = [correction, *found]
+    implausible = _implausible(_relevant_rejections(ctx, found))
+    if implausible is not None:
+        found.append(implausible)
+    out: dict[FindingCode, Finding] = {}
+    for f in found:
+        out.setdefault(f.code, f)
+    return list(out.values())
+
+
+def evaluate_workup(ctx: ClinicalContext, th: Thresholds) -> list[Finding]:
+    """Patient-view findings: [] for a normal sodium without a correction problem."""
+    gate = _out_of_scope(ctx, th)
+    if gate is not None:
+        return [gate]
+    return _assemble(ctx, th, workup_findings(ctx, th))
+
+
+def evaluate_orders(ctx: ClinicalContext, th: Thresholds) -> list[Finding]:
+    """Order-select / order-sign findings about the selected draft orders."""
+    gate = _out_of_scope(ctx, th)
+    if gate is not None:
+        return [gate]
+    return _assemble(ctx, th, order_findings(ctx, th))
