@@ -103,11 +103,15 @@ def _local_trial(settings: Settings) -> bool:
     return settings.local_trial or not settings.auth.required
 
 
-class _RequestId:
-    """A request id per call (``X-Request-ID`` kept when well formed), in logs and response."""
+class _ResponseHeaders:
+    """Outermost layer of ours: a request id per call (``X-Request-ID`` kept when well formed)
+    in logs and response, the local-trial warning header when auth is off, and a 500
+    OperationOutcome without internals for any fault that escaped the routes, so even that
+    response carries both headers."""
 
-    def __init__(self, app: Callable[..., Awaitable[None]]) -> None:
+    def __init__(self, app: Callable[..., Awaitable[None]], local_trial: bool) -> None:
         self.app = app
+        self.local_trial = local_trial
 
     async def __call__(self, scope: MutableMapping[str, Any], receive: Any, send: Any) -> None:
         if scope["type"] != "http":
@@ -115,39 +119,28 @@ class _RequestId:
             return
         incoming = dict(scope.get("headers") or []).get(b"x-request-id", b"")
         rid, token = logs.set_request_id(incoming.decode("latin-1") or None)
+        extra = [(b"x-request-id", rid.encode())]
+        if self.local_trial:
+            extra.append((LOCAL_TRIAL_HEADER.lower().encode(), LOCAL_TRIAL_VALUE.encode()))
+        started = False
 
-        async def send_with_id(message: MutableMapping[str, Any]) -> None:
+        async def send_with_headers(message: MutableMapping[str, Any]) -> None:
+            nonlocal started
             if message["type"] == "http.response.start":
-                headers = list(message.get("headers", []))
-                headers.append((b"x-request-id", rid.encode()))
-                message["headers"] = headers
+                started = True
+                message["headers"] = [*message.get("headers", []), *extra]
             await send(message)
 
         try:
-            await self.app(scope, receive, send_with_id)
+            await self.app(scope, receive, send_with_headers)
+        except Exception as exc:
+            _log.error("internal error: %s", type(exc).__name__, exc_info=exc)
+            if started:
+                raise
+            response = operation_outcome(500, "internal error; the request was not evaluated")
+            await response(scope, receive, send_with_headers)
         finally:
             logs.reset_request_id(token)
-
-
-class _LocalTrialHeader:
-    """Adds the local-trial warning header to every response (pure ASGI, streams untouched)."""
-
-    def __init__(self, app: Callable[..., Awaitable[None]]) -> None:
-        self.app = app
-
-    async def __call__(self, scope: MutableMapping[str, Any], receive: Any, send: Any) -> None:
-        if scope["type"] != "http":
-            await self.app(scope, receive, send)
-            return
-
-        async def send_with_header(message: MutableMapping[str, Any]) -> None:
-            if message["type"] == "http.response.start":
-                headers = list(message.get("headers", []))
-                headers.append((LOCAL_TRIAL_HEADER.lower().encode(), LOCAL_TRIAL_VALUE.encode()))
-                message["headers"] = headers
-            await send(message)
-
-        await self.app(scope, receive, send_with_header)
 
 
 def create_app(settings: Settings) -> FastAPI:
@@ -180,9 +173,7 @@ def create_app(settings: Settings) -> FastAPI:
         lifespan=lifespan,
     )
     app.state.settings = settings
-    if _local_trial(settings):
-        app.add_middleware(_LocalTrialHeader)
-    app.add_middleware(_RequestId)
+    app.add_middleware(_ResponseHeaders, local_trial=_local_trial(settings))
     _install_error_handlers(app)
     _install_routes(app, settings)
     _include_routers(app)

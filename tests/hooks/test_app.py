@@ -270,6 +270,7 @@ def test_unexpected_failure_is_500_without_internals(client: TestClient, monkeyp
     assert response.status_code == 500
     assert "secret" not in response.text
     _outcome(response)
+    assert response.headers[LOCAL_TRIAL_HEADER] and response.headers["x-request-id"]
 
 
 def test_lab_results_with_osmolality_reach_the_engine(client: TestClient) -> None:
