@@ -96,7 +96,7 @@ def create_router() -> APIRouter:
         return FileResponse(
             path,
             media_type=_MEDIA.get(path.suffix, "application/octet-stream"),
-            headers={"Cache-Control": "max-age=300"},
+            headers={"Cache-Control": "no-cache"},
         )
 
     @router.get("/workbench/samples")

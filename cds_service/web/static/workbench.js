@@ -52,20 +52,32 @@
       list.replaceChildren(el("li", { class: "muted", text: "No sample files found." }));
       return;
     }
+    // One entry per story: its hook request and its Bundle side by side.
+    const groups = new Map();
+    for (const s of data.samples) {
+      const key = `${s.hook || ""}|${s.story || s.name}`;
+      if (!groups.has(key)) groups.set(key, []);
+      groups.get(key).push(s);
+    }
     list.replaceChildren(
-      ...data.samples.map((s) => {
-        const btn = el("button", { type: "button", class: "primary", text: "Run" });
-        btn.setAttribute("aria-label", `Run sample ${s.name}`);
-        btn.addEventListener("click", () => runSample(s, btn));
-        const meta = `${s.kind === "request" ? "Hook request" : "FHIR Bundle"}` +
-          (s.hook ? ` · ${s.hook}` : "");
+      ...[...groups.values()].map((items) => {
+        const first = items[0];
+        const buttons = el("div", { class: "sample-buttons" });
+        for (const s of items) {
+          const kind = s.kind === "request" ? "Request" : "Bundle";
+          const btn = el("button", { type: "button", text: `Run ${kind.toLowerCase()}`,
+            "data-sample": s.name, title: s.name });
+          btn.setAttribute("aria-label", `Run ${kind.toLowerCase()} ${s.name}`);
+          btn.addEventListener("click", () => runSample(s, btn));
+          buttons.append(btn);
+        }
         return el(
           "li",
-          { class: "sample", "data-sample": s.name },
-          el("div", { class: "sample-name", text: s.name }),
-          el("div", { class: "sample-meta", text: meta }),
-          s.story ? el("p", { text: s.story }) : null,
-          btn,
+          { class: "sample" },
+          el("p", { class: "sample-story", text: first.story || first.name }),
+          el("div", { class: "sample-meta", text: `${first.hook || "hook from file"} · ` +
+            items.map((s) => s.name.split("/").pop()).join(", ") }),
+          buttons,
         );
       }),
     );
@@ -80,6 +92,7 @@
       $("request-body").value = JSON.stringify(req, null, 2);
       $("service").value = "";
       await send();
+      $("cards-title").scrollIntoView({ block: "start", behavior: "smooth" });
     } catch (e) {
       setStatus(String(e.message || e), true);
     } finally {
