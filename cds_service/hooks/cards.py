@@ -93,9 +93,14 @@ def render_detail(finding: Finding, now: datetime, unavailable: Iterable[str] = 
     out += _section("Missing tests", (_test_name(a) for a in finding.missing))
     out += _section("Next steps", finding.next_steps)
     out += _section("Not available", unavailable)
-    out += _section("Cautions", finding.cautions)
+    out += _section("Cautions", (c for c in finding.cautions if not _is_caution_line(c)))
     out.append(f"> {CAUTION}")
     return "\n".join(out)
+
+
+def _is_caution_line(text: str) -> bool:
+    """The clinical core may repeat the standing caution; it is written once, last."""
+    return text.lower().startswith("decision support for licensed clinicians")
 
 
 def _suggestions(finding: Finding, patient_id: str) -> list[Suggestion]:

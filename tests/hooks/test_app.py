@@ -231,8 +231,8 @@ def test_wrong_method_is_operation_outcome(client: TestClient) -> None:
 
 
 def test_feedback_is_stored_and_bad_feedback_is_400(client: TestClient) -> None:
-    result = client.post(WORKUP, json=hook_request(observations=sodium_series(126))).json()
-    card = result["cards"][0]
+    result = client.post(WORKUP, json=hook_request(observations=sodium_series(121))).json()
+    card = next(c for c in result["cards"] if c["indicator"] != "info")
     feedback = {
         "feedback": [
             {
