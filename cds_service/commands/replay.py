@@ -48,7 +48,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     )
     parser.add_argument("--key", help="private key (PEM or JWK file) to sign a JWT per call")
     parser.add_argument("--issuer", help="JWT iss: the client issuer registered in the config")
-    parser.add_argument("--kid", help="JWT kid (default: the JWK's kid)")
+    parser.add_argument(
+        "--kid", help="JWT kid (default: the JWK's kid, else the key's RFC 7638 thumbprint)"
+    )
     parser.add_argument("--tenant", help="JWT tenant claim, when the deployment uses one")
     parser.add_argument("--timeout", type=float, default=30.0, help="seconds per call (default 30)")
     parser.add_argument(
@@ -232,8 +234,15 @@ class Signer:
             if not isinstance(material, dict):
                 raise UserError(f"key file {key} is not a JWK object")
             kid = kid or material.get("kid")
-        if not kid:
-            raise UserError("--kid is required (the key file names no kid)")
+        if not kid:  # as `tonicity keys` does: the RFC 7638 thumbprint of the public key
+            from cds_service.commands.keys import public_jwk
+            from cds_service.hooks.auth import load_private_key
+
+            try:
+                private, alg = load_private_key(material)
+            except ValueError as exc:
+                raise UserError(f"key file {key}: {exc}") from None
+            kid = public_jwk(private, alg)["kid"]
         signer = cls(material, issuer, str(kid), tenant)
         signer.token("https://check.invalid/")  # fail now, once, on an unusable key
         return signer
