@@ -20,6 +20,6 @@ def facts(resource: dict[str, Any] | None, patient_id: str | None, now: datetime
     gender = (text(resource.get("gender")) or "").lower()
     return PatientFacts(
         patient_id=patient_id or text(resource.get("id")),
-        age_years=round(age, 2) if age is not None else None,
+        age_years=age,  # never rounded: 17.997 must stay under 18
         sex=_SEX.get(gender, Sex.UNKNOWN),
     )
