@@ -67,23 +67,13 @@ def test_replay_signs_a_fresh_token_per_call(tmp_path: Path, capsys: Any) -> Non
     client = {"issuer": ISSUER, "jwks_file": str(jwks)}
     folder = _subset(tmp_path, THREE)
     with live_server(tmp_path, auth={"required": True, "clients": [client]}) as url:
-        rc = main(
-            [
-                "replay",
-                str(folder),
-                "--url",
-                url,
-                "--key",
-                str(private),
-                "--issuer",
-                ISSUER,
-            ]
-        )
+        replay = ["replay", str(folder), "--url", url]
+        rc = main([*replay, "--key", str(private), "--issuer", ISSUER])
         out, err = capsys.readouterr()
         assert rc == 0, out + err
         assert "3 matched, 0 failed" in out
         # The same deployment refuses a caller without a token: one line, exit 2.
-        rc = main(["replay", str(folder), "--url", url])
+        rc = main(replay)
         out, err = capsys.readouterr()
         assert rc == 2
         assert len(err.strip().splitlines()) == 1 and "401" in err
@@ -92,20 +82,8 @@ def test_replay_signs_a_fresh_token_per_call(tmp_path: Path, capsys: Any) -> Non
         kid = private.name.removesuffix(".private.pem")
         main(["keys", "generate", "--out-dir", str(other), "--kid", kid])
         capsys.readouterr()
-        rc = main(
-            [
-                "replay",
-                str(folder),
-                "--url",
-                url,
-                "--key",
-                str(other / f"{kid}.private.pem"),
-                "--issuer",
-                ISSUER,
-                "--kid",
-                kid,
-            ]
-        )
+        other_key = str(other / f"{kid}.private.pem")
+        rc = main([*replay, "--key", other_key, "--issuer", ISSUER, "--kid", kid])
         assert rc == 2 and "401" in capsys.readouterr().err
 
 
