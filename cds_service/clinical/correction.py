@@ -144,9 +144,12 @@ def correction_finding(ctx: ClinicalContext, th: Thresholds) -> Finding | None:
     if status is None or not status.exceeded:
         return None
     limits = status.limits
-    worst = status.rise_24h if status.exceeded_24h else status.rise_48h
-    hours, limit = (24, limits.limit_24h) if status.exceeded_24h else (48, limits.limit_48h)
-    assert worst is not None
+    if status.rise_24h is not None and status.exceeded_24h:
+        worst, hours, limit = status.rise_24h, 24, limits.limit_24h
+    elif status.rise_48h is not None:
+        worst, hours, limit = status.rise_48h, 48, limits.limit_48h
+    else:  # pragma: no cover - exceeded implies one of the rises exists
+        return None
     values = [Value(ValueName.SERUM_SODIUM, round(status.latest.value, 1))]
     details = []
     for name, rise, h, lim in (

@@ -47,14 +47,14 @@ class OrderContext:
 
     def arithmetic(self, fluid: ResolvedFluid) -> tuple[list[Value], list[str], list[str]]:
         """(values, formula lines, detail lines) of a fluid's predicted effect."""
-        effect = self.effect(fluid)
-        if effect is None:
+        if self.sodium is None or self.water is None:
             why = "serum sodium" if self.sodium is None else "body weight"
             return [], [], [f"The change per litre needs a recorded {why}; not computed."]
+        effect = infusion_effect(fluid, self.sodium.value, self.water.litres,
+                                 self.limits.limit_24h)
         values = [value(V.TOTAL_BODY_WATER, effect.tbw),
                   value(V.DELTA_SODIUM_PER_LITER, effect.delta_per_liter)]
-        assert self.water is not None
-        return values, [*self.water.lines(), *effect.lines()], []
+        return values, [*self.water.lines(), *effect.lines()], list(self.water.notes())
 
     def inputs(self) -> tuple[InputUsed, ...]:
         labs = (self.sodium, self.ctx.current.get(Analyte.BODY_WEIGHT))

@@ -36,12 +36,14 @@ class BodyWater:
 
     def lines(self) -> tuple[str, ...]:
         kg = num(self.weight.value)
-        out = [f"Total body water ({who}) = {num(frac, 2)} × {kg} kg = {num(litres)} L"
-               for who, frac, litres in self.candidates]
-        if self.uncertain:
-            out.append(f"Sex or age not recorded: every fraction computed; the figures use "
-                       f"the smallest, {num(self.litres)} L (largest predicted change).")
-        return tuple(out)
+        return tuple(f"Total body water ({who}) = {num(frac, 2)} × {kg} kg = {num(litres)} L"
+                     for who, frac, litres in self.candidates)
+
+    def notes(self) -> tuple[str, ...]:
+        if not self.uncertain:
+            return ()
+        return (f"Sex or age not recorded: body water computed for each; the figures use the "
+                f"smallest, {num(self.litres)} L (it predicts the largest change).",)
 
 
 def body_water(ctx: ClinicalContext, th: Thresholds) -> BodyWater | None:

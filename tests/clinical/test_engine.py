@@ -244,7 +244,7 @@ def test_hypertonic_saline_without_weight_or_sex(th: Thresholds) -> None:
     f = by_code(evaluate_orders(unknown_sex, th))[C.HYPERTONIC_SALINE_ORDER]
     assert values(f)[V.TOTAL_BODY_WATER] == 35.0  # the smaller of 0.6 and 0.5 x 70
     assert any("man" in line and "42" in line for line in f.formulas)
-    assert any("Sex or age not recorded" in line for line in f.formulas)
+    assert any("Sex or age not recorded" in line for line in f.details)
 
 
 def test_drug_and_vaptan_orders(th: Thresholds) -> None:
@@ -312,3 +312,18 @@ def test_engine_laws(labs, na, fl, dr, sex, weight, conditions, history) -> None
         assert len(tonicity) <= 1
         if evaluate is evaluate_workup:
             assert bool(tonicity) == (na < 135)
+
+
+def test_supplemental_siadh_criteria_from_fractional_excretions(th: Thresholds) -> None:
+    # Fenske 2008 (from memory): FE urate > 12 % supports SIADH; Spasovski 2014 (from memory):
+    # FE urea > 55 %, uric acid < 4 mg/dL. FE urate = 40 x 0.8 / (3 x 60) = 17.8 %;
+    # FE urea = 600 x 0.8 / (8 x 60) = 100 %.
+    ctx = make_ctx({A.SODIUM: 127, A.OSMOLALITY: 262, A.URINE_OSMOLALITY: 420,
+                    A.URINE_SODIUM: 70, A.URIC_ACID: 3.0, A.URINE_URIC_ACID: 40,
+                    A.CREATININE: 0.8, A.URINE_CREATININE: 60, A.UREA_NITROGEN: 8,
+                    A.URINE_UREA_NITROGEN: 600})
+    siadh = by_code(evaluate_workup(ctx, th))[C.SIADH_PATTERN]
+    text = "\n".join(siadh.details)
+    assert "✓ met: fractional excretion of uric acid > 12 % (17.8 %)" in text
+    assert "✓ met: fractional excretion of urea > 55 % (100 %)" in text
+    assert "✓ met: serum uric acid < 4 mg/dL (3 mg/dL)" in text
