@@ -25,10 +25,11 @@ CLAY = "#a4471f"
 PLUM = "#5b3a6e"
 GRID = "#d6d0c4"
 
+#: Marker strip rows: shape, colour and the short row label (with its unit).
 _MARKER_STYLE = {
-    "osmolality": ("^", PLUM),
-    "urine_osmolality": ("v", "#8a5a00"),
-    "urine_sodium": ("D", "#3d5a80"),
+    "osmolality": ("^", PLUM, "Serum osm (mOsm/kg)"),
+    "urine_osmolality": ("v", "#8a5a00", "Urine osm (mOsm/kg)"),
+    "urine_sodium": ("D", "#3d5a80", "Urine Na (mmol/L)"),
 }
 
 _lock = threading.Lock()  # pyplot-free, but font cache and rcParams are process-wide
@@ -68,21 +69,32 @@ def render_trend_svg(payload: dict[str, Any]) -> str:
             }
         ),
     ):
-        fig = Figure(figsize=(8.6, 4.4), dpi=100)
-        ax = fig.add_subplot()
-        ax.set_facecolor("#fffdf8")
+        markers = payload.get("markers") or []
+        fig = Figure(figsize=(8.6, 5.2 if markers else 4.4), dpi=100)
         fig.patch.set_facecolor("white")
+        if markers:
+            ax, strip = fig.subplots(
+                2, 1, sharex=True, gridspec_kw={"height_ratios": [4, 1.15], "hspace": 0.08}
+            )
+        else:
+            ax, strip = fig.add_subplot(), None
+        ax.set_facecolor("#fffdf8")
         _draw(ax, payload)
+        bottom = ax
+        if strip is not None:
+            _draw_markers(strip, markers)
+            _draw_starts(strip, payload.get("starts") or [], labels=False)
+            bottom = strip
         locator = mdates.AutoDateLocator(minticks=4, maxticks=9)
-        ax.xaxis.set_major_locator(locator)
-        ax.xaxis.set_major_formatter(mdates.DateFormatter("%d %b\n%H:%M"))
-        ax.set_xlabel("Time (UTC)")
+        bottom.xaxis.set_major_locator(locator)
+        bottom.xaxis.set_major_formatter(mdates.DateFormatter("%d %b\n%H:%M"))
+        bottom.set_xlabel("Time (UTC)")
         ax.set_ylabel("Serum sodium (mmol/L)")
         ax.set_title("Serum sodium and correction limits", loc="left", color=INK, fontsize=12)
         ax.grid(True, color=GRID, linewidth=0.6)
         _legend_extras(ax, payload.get("sodium") or [])
         ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), fontsize=8, frameon=False)
-        fig.subplots_adjust(left=0.08, right=0.72, top=0.88, bottom=0.17)
+        fig.subplots_adjust(left=0.16, right=0.74, top=0.9, bottom=0.14 if markers else 0.17)
         out = io.StringIO()
         fig.savefig(out, format="svg", metadata={"Date": None, "Creator": "Tonicity"})
     return out.getvalue()
@@ -111,8 +123,7 @@ def _draw(ax: Any, payload: dict[str, Any]) -> None:
             gid=f"sodium-point-{i}",
         )
     _draw_band(ax, payload.get("limits"), times)
-    _draw_markers(ax, payload.get("markers") or [])
-    _draw_starts(ax, payload.get("starts") or [], times)
+    _draw_starts(ax, payload.get("starts") or [], labels=True)
     if values:
         lo, hi = min(values), max(values)
         limits = payload.get("limits") or {}
@@ -170,42 +181,49 @@ def _draw_band(ax: Any, limits: dict[str, Any] | None, times: list[datetime]) ->
     ax.axvline(t0, color=CLAY, linewidth=0.8, alpha=0.6, zorder=1)
 
 
-def _draw_markers(ax: Any, markers: list[dict[str, Any]]) -> None:
-    seen: set[str] = set()
-    trans = ax.get_xaxis_transform()  # x in data, y in axes fraction
+def _draw_markers(strip: Any, markers: list[dict[str, Any]]) -> None:
+    """Osmolality and urine studies in a strip under the sodium axes, one row per test."""
+    rows = list(_MARKER_STYLE)
+    rows += sorted({str(m.get("kind")) for m in markers} - set(rows))
+    names = {k: style[2] for k, style in _MARKER_STYLE.items()}
     for i, m in enumerate(markers):
         kind = str(m.get("kind", "other"))
-        shape, colour = _MARKER_STYLE.get(kind, ("P", INK))
-        t = _t(m["time"])
-        label = None if kind in seen else f"{m.get('label', kind)} ({m.get('unit', '')})"
-        seen.add(kind)
-        y = 0.06 + 0.07 * list(_MARKER_STYLE).index(kind) if kind in _MARKER_STYLE else 0.27
-        ax.plot(
-            [t],
+        shape, colour, _ = _MARKER_STYLE.get(kind, ("P", INK, ""))
+        names.setdefault(kind, f"{m.get('label', kind)} ({m.get('unit', '')})")
+        y = rows.index(kind)
+        strip.plot(
+            [_t(m["time"])],
             [y],
-            transform=trans,
             marker=shape,
             color=colour,
             markersize=8,
             linestyle="none",
             zorder=5,
             gid=f"marker-{kind}-{i}",
-            label=label,
         )
-        ax.annotate(
+        strip.annotate(
             f"{float(m['value']):g}",
-            (_num(t), y),
-            xycoords=trans,
-            xytext=(6, -3),
+            (_num(_t(m["time"])), y),
+            xytext=(7, -3),
             textcoords="offset points",
-            fontsize=7.5,
+            fontsize=8,
             color=colour,
         )
+    strip.set_yticks(
+        range(len(rows)), [names.get(k, k.replace("_", " ")) for k in rows], fontsize=7.5
+    )
+    strip.set_ylim(len(rows) - 0.4, -0.6)
+    strip.set_facecolor("#fbf8f1")
+    strip.grid(True, axis="x", color=GRID, linewidth=0.6)
 
 
-def _draw_starts(ax: Any, starts: list[dict[str, Any]], times: list[datetime]) -> None:
+def _draw_starts(ax: Any, starts: list[dict[str, Any]], *, labels: bool) -> None:
+    """Vertical lines at medication or infusion starts (and drafts, at evaluation time).
+
+    Only the sodium axes carry ids, legend entry and labels; the marker strip repeats the
+    lines as plain guides.
+    """
     trans = ax.get_xaxis_transform()
-    labelled = False
     for i, s in enumerate(starts):
         t = _t(s["time"])
         colour = CLAY if s.get("associated") else "#6b6b6b"
@@ -215,18 +233,18 @@ def _draw_starts(ax: Any, starts: list[dict[str, Any]], times: list[datetime]) -
             linewidth=1.1,
             linestyle="-.",
             zorder=2,
-            gid=f"start-{i}",
-            label=None if labelled else "Medication or infusion start",
+            gid=f"start-{i}" if labels else None,
+            label="Medication or infusion start" if labels and i == 0 else None,
         )
-        labelled = True
-        ax.text(
-            _num(t),
-            0.98,
-            f" {s.get('label', '')}"[:40],
-            transform=trans,
-            rotation=90,
-            va="top",
-            ha="right",
-            fontsize=7.5,
-            color=colour,
-        )
+        if labels:
+            ax.text(
+                _num(t),
+                0.98,
+                f" {s.get('label', '')}"[:40],
+                transform=trans,
+                rotation=90,
+                va="top",
+                ha="right",
+                fontsize=7.5,
+                color=colour,
+            )

@@ -102,11 +102,13 @@ def sodium_rows(payload: dict[str, Any]) -> list[SodiumRow]:
         t = datetime.fromisoformat(p["time"])
         change, limit = "", ""
         if t0 is not None and v0 is not None and t >= t0:
-            change = f"{float(p['value']) - float(v0):+g}"
-            if t <= t0 + timedelta(hours=24):
-                limit = f"+{number(lim['limit_24h'])} in 24 h"
-            elif t <= t0 + timedelta(hours=48):
-                limit = f"+{number(lim['limit_48h'])} in 48 h"
+            rise = float(p["value"]) - float(v0)
+            change = f"{rise:+g}"
+            for hours, key in ((24, "limit_24h"), (48, "limit_48h")):
+                if t <= t0 + timedelta(hours=hours):
+                    over = " (exceeded)" if rise > float(lim[key]) else ""
+                    limit = f"+{number(lim[key])} in {hours} h{over}"
+                    break
         note = p.get("note", "")
         rows.append(SodiumRow(when(p["time"]), number(p["value"]), change, note, limit))
     return rows

@@ -85,7 +85,7 @@ def driver(tmp_path_factory: pytest.TempPathFactory) -> Iterator[object]:
         "--disable-component-update",
         "--disable-sync",
         "--disable-dev-shm-usage",
-        "--window-size=1440,1300",
+        "--window-size=1440,1500",
         f"--user-data-dir={profile}",
     ):
         options.add_argument(arg)

@@ -44,6 +44,8 @@ def test_trend_page_shows_chart_table_findings_and_caution(client: TestClient, s
     assert table.count("<tr>") == len(SODIUM) + 1  # + header
     for _, value, _, _ in SODIUM:
         assert f">{value:g}<" in table
+    # 118 -> 129 (+11) within 24 h is above the 10 mmol/L limit (thresholds.toml, Verbalis 2013).
+    assert table.count("(exceeded)") == 1
     # Findings with their numbers; card text is escaped, never markup.
     assert "Sodium rose 11 mmol/L in 24 h" in html
     assert "Sodium change in 24 h" in html

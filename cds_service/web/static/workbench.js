@@ -84,6 +84,10 @@
   }
 
   async function runSample(sample, btn) {
+    for (const b of document.querySelectorAll(".sample-buttons button")) {
+      b.removeAttribute("aria-current");
+    }
+    btn.setAttribute("aria-current", "true");
     btn.disabled = true;
     setStatus(`Preparing ${sample.name}…`);
     try {
@@ -92,7 +96,7 @@
       $("request-body").value = JSON.stringify(req, null, 2);
       $("service").value = "";
       await send();
-      $("cards-title").scrollIntoView({ block: "start", behavior: "smooth" });
+      $("cards-title").scrollIntoView({ block: "nearest", behavior: "smooth" });
     } catch (e) {
       setStatus(String(e.message || e), true);
     } finally {
