@@ -1,7 +1,7 @@
 """Realistic, invented CDS Hooks requests for benchmarks and reliability runs.
 
 The scenario is fictional: an adult inpatient of "Larkspur Valley Hospital" admitted with
-profound hyponatremia that is corrected too fast on day two, with seven days of chemistry
+profound hyponatremia that rises too fast on the last day, with seven days of chemistry
 (serial sodium, glucose, urea nitrogen, creatinine, potassium, serum and urine osmolality,
 urine sodium, daily weights), home and inpatient medications and a problem list. Every name,
 identifier and value is invented; the LOINC, UCUM, SNOMED CT and RxNorm codes are the open
@@ -38,8 +38,13 @@ CONDITION_CLINICAL = "http://terminology.hl7.org/CodeSystem/condition-clinical"
 PATIENT_ID = "lvh-pt-20417"
 PRACTITIONER = "Practitioner/lvh-dr-ossian-teller"
 ENCOUNTER_ID = "lvh-enc-88213"
-#: A fixed evaluation time, so that every run sees the same seven days.
-DEFAULT_NOW = datetime(2026, 3, 14, 9, 30, tzinfo=UTC)
+
+
+def current_time() -> datetime:
+    """The default evaluation time: now, to the minute. The service judges results by their age
+    against its own clock, so generated records always end just before the call."""
+    return datetime.now(UTC).replace(second=0, microsecond=0)
+
 
 SERVICE_IDS = {
     "patient-view": "sodium-workup",
@@ -72,15 +77,16 @@ ANALYTES: tuple[Analyte, ...] = (
     Analyte("urine_na", "2955-3", "Sodium [Moles/volume] in Urine", "mmol/L", 0.04),
 )
 
-#: Serum sodium path (days from the first draw, mmol/L): 116 on admission, a rise of about
-#: 10 mmol/L within a day on day two (too fast: the surveillance should see it), then a plateau.
+#: Serum sodium path (days from the first draw, mmol/L): admitted at 121, drifting down to
+#: 117 on day five, then a rise of 12 mmol/L within the last day (faster than the usual limits:
+#: the correction-rate surveillance should see it) to 129 at the last draw.
 _SODIUM_PATH: tuple[tuple[float, float], ...] = (
-    (0.0, 116.0),
-    (0.5, 118.0),
-    (1.0, 121.0),
-    (1.8, 131.0),
-    (3.0, 132.0),
-    (7.0, 133.0),
+    (0.0, 121.0),
+    (3.0, 119.0),
+    (5.0, 117.0),
+    (6.0, 117.0),
+    (6.9, 129.0),
+    (7.0, 129.0),
 )
 
 
@@ -148,12 +154,13 @@ def observation(
 def observations(
     n: int = 200,
     *,
-    now: datetime = DEFAULT_NOW,
+    now: datetime | None = None,
     span_days: float = 7.0,
     seed: int = 20417,
     patient_id: str = PATIENT_ID,
 ) -> list[dict[str, Any]]:
     """``n`` Observations spread over the ``span_days`` before ``now`` (oldest first)."""
+    now = now or current_time()
     rng = random.Random(seed)
     start = now - timedelta(days=span_days) + timedelta(hours=1)
     out: list[dict[str, Any]] = []
@@ -161,9 +168,11 @@ def observations(
         count = _counts(n)[analyte.key]
         step = (span_days - 2 / 24) / count
         for i in range(count):
-            day = i * step + rng.uniform(0, step * 0.3)
+            # The last result of every analyte belongs to one morning panel an hour ago.
+            last = i == count - 1
+            day = span_days - 2 / 24 if last else i * step + rng.uniform(0, step * 0.3)
             when = (start + timedelta(days=day)).replace(microsecond=0)
-            ident = f"lvh-obs-{analyte.key}-{i:05d}"
+            ident = f"lvh-obs-{analyte.key.replace('_', '-')}-{i:05d}"
             out.append(observation(analyte, _value(analyte.key, day, rng), when, ident, patient_id))
     out.sort(key=lambda o: o["effectiveDateTime"])
     return out
@@ -202,9 +211,10 @@ def _medication(
 
 
 def medication_requests(
-    patient_id: str = PATIENT_ID, now: datetime = DEFAULT_NOW
+    patient_id: str = PATIENT_ID, now: datetime | None = None
 ) -> list[dict[str, Any]]:
     """Active inpatient orders (RxNorm ingredient codes from memory)."""
+    now = now or current_time()
     started = now - timedelta(days=6)
     rows = (
         ("lvh-mr-sertraline", "Sertraline 50 mg oral tablet", "36437"),
@@ -218,8 +228,9 @@ def medication_requests(
 
 
 def medication_statements(
-    patient_id: str = PATIENT_ID, now: datetime = DEFAULT_NOW
+    patient_id: str = PATIENT_ID, now: datetime | None = None
 ) -> list[dict[str, Any]]:
+    now = now or current_time()
     started = now - timedelta(days=400)
     return [
         _medication(
@@ -293,8 +304,9 @@ def _fluid(
     }
 
 
-def draft_orders(patient_id: str = PATIENT_ID, now: datetime = DEFAULT_NOW) -> list[dict[str, Any]]:
+def draft_orders(patient_id: str = PATIENT_ID, now: datetime | None = None) -> list[dict[str, Any]]:
     """Three drafts: 3% saline, 0.45% saline and sertraline (RxNorm codes from memory)."""
+    now = now or current_time()
     sertraline = _medication(
         "MedicationRequest",
         "lvh-draft-sertraline",
@@ -319,6 +331,13 @@ def draft_orders(patient_id: str = PATIENT_ID, now: datetime = DEFAULT_NOW) -> l
     ]
 
 
+def service_templates() -> dict[str, str]:
+    """The services' prefetch templates (key -> FHIR query)."""
+    from cds_service.hooks.registry import prefetch_templates
+
+    return dict(prefetch_templates())
+
+
 def fill_prefetch(
     templates: Mapping[str, str], context: Mapping[str, Any], record: Sequence[Mapping[str, Any]]
 ) -> dict[str, Any]:
@@ -334,11 +353,12 @@ def fill_prefetch(
 def record(
     n_observations: int = 200,
     *,
-    now: datetime = DEFAULT_NOW,
+    now: datetime | None = None,
     seed: int = 20417,
     patient_id: str = PATIENT_ID,
 ) -> list[dict[str, Any]]:
     """The patient's whole record: Patient, Observations, medications, problems."""
+    now = now or current_time()
     return [
         patient(patient_id),
         *observations(n_observations, now=now, seed=seed, patient_id=patient_id),
@@ -352,7 +372,7 @@ def hook_request(
     hook: str,
     n_observations: int = 200,
     *,
-    now: datetime = DEFAULT_NOW,
+    now: datetime | None = None,
     seed: int = 20417,
     patient_id: str = PATIENT_ID,
     templates: Mapping[str, str] | None = None,
@@ -360,6 +380,7 @@ def hook_request(
     prefetch: bool = True,
 ) -> dict[str, Any]:
     """A complete CDS Hooks request for ``hook`` (patient-view, order-select or order-sign)."""
+    now = now or current_time()
     from cds_service.hooks.client import build_request
 
     if hook not in SERVICE_IDS:
