@@ -93,13 +93,21 @@ class ObservationReader:
     results: list[LabResult] = field(default_factory=list)
     rejected: list[RejectedResult] = field(default_factory=list)
     _seen: dict[tuple[Analyte, datetime, float], str] = field(default_factory=dict)
+    _valid: dict[str, str | None] = field(default_factory=dict)
 
     def read(self, resource: dict[str, Any], key: str) -> None:
-        label = concept_text(resource.get("code")) or "Observation"
-        if not is_relevant(resource):
+        main = mapped_entries(resource.get("code"))[:1]
+        parts = [
+            (obj(c), entries[0])
+            for c in items(resource.get("component"))
+            if (entries := mapped_entries(obj(c).get("code")))
+        ]
+        if not main and not parts:
+            label = concept_text(resource.get("code")) or "Observation"
             self.report.ignore(key, label, "code not in Tonicity's LOINC map")
             return
-        why = validate.problem(resource)
+        label = f"{(main or [parts[0][1]])[0].analyte.value} observation"
+        why = validate.problem(resource, self._valid)
         if why:
             self.report.ignore(key, label, why)
             return
@@ -114,12 +122,7 @@ class ObservationReader:
         if when > self.now:
             self.report.ignore(key, label, "time is after the evaluation time", time=when)
             return
-        holders: list[tuple[dict[str, Any], loinc.LoincEntry]] = []
-        for entry in mapped_entries(resource.get("code"))[:1]:
-            holders.append((resource, entry))
-        for component in items(resource.get("component")):
-            for entry in mapped_entries(obj(component).get("code"))[:1]:
-                holders.append((obj(component), entry))
+        holders = [(resource, entry) for entry in main] + parts
         for holder, entry in holders:
             self._read_one(holder, entry, key, when, preliminary=status == "preliminary")
 

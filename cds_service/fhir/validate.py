@@ -1,7 +1,18 @@
-"""Validate one raw resource with its fhir.resources R4B model; a short reason when invalid."""
+"""Validate one raw resource with its fhir.resources R4B model; a short reason when invalid.
+
+Observations are validated in their *read* form: only the elements Tonicity reads (status,
+code, subject, effective[x], issued, value[x], dataAbsentReason, component) go through the
+R4B model, so a narrative or reference range Tonicity never looks at costs nothing and cannot
+make a usable result unusable. Within one request, Observations that differ only in id, time
+and numeric value share one validation: times are parsed strictly by
+``times.parse_datetime``, and a JSON number is always a valid FHIR decimal (a value sent as
+a string is part of the shared key, so it is validated on its own).
+"""
 
 from __future__ import annotations
 
+import json
+import math
 from functools import cache
 from importlib import import_module
 from typing import Any
@@ -15,21 +26,28 @@ _MODULES = {
     "MedicationStatement": "medicationstatement",
     "MedicationAdministration": "medicationadministration",
 }
+_READ = {
+    "Observation": (
+        "resourceType", "id", "status", "code", "subject", "effectiveDateTime",
+        "effectivePeriod", "effectiveInstant", "issued", "valueQuantity", "valueString",
+        "valueInteger", "dataAbsentReason", "component",
+    ),
+}  # fmt: skip
+_VOLATILE = frozenset({"id", "effectiveDateTime", "effectivePeriod", "effectiveInstant", "issued"})
+
+
+RESOURCE_TYPES = tuple(_MODULES)
 
 
 @cache
-def _model(resource_type: str) -> Any:
+def model_for(resource_type: str) -> Any:
     module = import_module(f"fhir.resources.R4B.{_MODULES[resource_type]}")
     return getattr(module, resource_type)
 
 
-def problem(resource: dict[str, Any]) -> str | None:
-    """None when ``resource`` is valid FHIR R4 for its type, else a one-line reason."""
-    resource_type = resource.get("resourceType")
-    if resource_type not in _MODULES:
-        return f"resource type {resource_type!r} is not read"
+def _check(resource_type: str, resource: dict[str, Any]) -> str | None:
     try:
-        _model(resource_type).model_validate(resource)
+        model_for(resource_type).model_validate(resource)
     except Exception as exc:  # pydantic ValidationError, or anything the models raise
         errors = getattr(exc, "errors", None)
         if callable(errors):
@@ -41,3 +59,34 @@ def problem(resource: dict[str, Any]) -> str | None:
                 pass
         return f"invalid FHIR R4 {resource_type}: {type(exc).__name__}"
     return None
+
+
+def _is_json_number(value: Any) -> bool:
+    return isinstance(value, int | float) and not isinstance(value, bool) and math.isfinite(value)
+
+
+def problem(resource: dict[str, Any], memo: dict[str, str | None] | None = None) -> str | None:
+    """None when ``resource`` is valid FHIR R4 for its type, else a one-line reason.
+
+    ``memo`` (one per request) lets Observations that differ only in id and time share a check.
+    """
+    resource_type = resource.get("resourceType")
+    if resource_type not in _MODULES:
+        return f"resource type {resource_type!r} is not read"
+    fields = _READ.get(resource_type)
+    if fields is None:
+        return _check(resource_type, resource)
+    lean = {k: resource[k] for k in fields if k in resource}
+    if memo is None:
+        return _check(resource_type, lean)
+    shared = {k: v for k, v in lean.items() if k not in _VOLATILE}
+    quantity = shared.get("valueQuantity")
+    if isinstance(quantity, dict) and _is_json_number(quantity.get("value")):
+        shared["valueQuantity"] = {**quantity, "value": 0}
+    try:
+        key = json.dumps(shared, sort_keys=True)
+    except (TypeError, ValueError):
+        return _check(resource_type, lean)
+    if key not in memo:  # validate exactly what the key stands for, never one time or value
+        memo[key] = _check(resource_type, shared)
+    return memo[key]

@@ -188,3 +188,31 @@ def test_other_patients_results_are_ignored() -> None:
     assert Analyte.SODIUM not in res.context.series
     assert "another patient" in line_for(res, "Observation/na")[0].reason
     assert PATIENT_ID != "someone-else"
+
+
+def test_shared_validation_never_hides_an_invalid_value() -> None:
+    good = observation("a", "2951-2", 127)
+    bad = observation("b", "2951-2", None, valueQuantity={"value": "12x7", "unit": "mmol/L"})
+    bad["effectiveDateTime"] = "2026-11-30T09:00:00Z"
+    res = ingest(good, bad)
+    assert [r.source_id for r in res.context.series[Analyte.SODIUM]] == ["Observation/a"]
+    assert line_for(res, "Observation/b")[0].reason.startswith("invalid FHIR R4 Observation")
+
+
+def test_elements_not_read_do_not_make_a_result_unusable() -> None:
+    # Tonicity validates what it reads; a malformed narrative is not a reason to drop a sodium.
+    obs = observation("na", "2951-2", 127, text={"status": "nonsense", "div": 5})
+    assert ingest(obs).context.current[Analyte.SODIUM].value == 127
+
+
+def test_bad_time_string_is_ignored_with_reason() -> None:
+    res = ingest(observation("na", "2951-2", 127, when="30/11/2026 08:00"))
+    assert Analyte.SODIUM not in res.context.series
+    assert not line_for(res, "Observation/na")[0].used
+
+
+def test_one_bad_time_does_not_spoil_results_sharing_its_validation() -> None:
+    first = observation("bad", "2951-2", 127, when="2026-11-30T25:61:00Z")
+    second = observation("ok", "2951-2", 127, when="2026-11-30T09:00:00Z")
+    res = ingest(first, second)
+    assert [r.source_id for r in res.context.series[Analyte.SODIUM]] == ["Observation/ok"]
