@@ -11,7 +11,7 @@ import tomllib
 from pathlib import Path
 from typing import Any
 
-from pydantic import BaseModel, ConfigDict, Field, field_validator
+from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
 from pydantic_settings import BaseSettings, PydanticBaseSettingsSource, SettingsConfigDict
 
 from cds_service.errors import UserError
@@ -45,6 +45,12 @@ class ClientSettings(_Section):
     jku_allowlist: list[str] = Field(default_factory=list)
     fhir_servers: list[str] = Field(default_factory=list)
 
+    @model_validator(mode="after")
+    def _has_key_source(self) -> ClientSettings:
+        if not (self.jwks_file or self.jwks_url or self.jku_allowlist):
+            raise ValueError(f"client {self.issuer!r} needs jwks_file, jwks_url or jku_allowlist")
+        return self
+
 
 class AuthSettings(_Section):
     required: bool = True
@@ -53,6 +59,13 @@ class AuthSettings(_Section):
     max_token_lifetime_seconds: int = Field(300, ge=10, le=3600)
     jwks_cache_seconds: int = Field(300, ge=0)
     jwks_fetch_timeout_seconds: float = Field(3.0, gt=0)
+
+    @model_validator(mode="after")
+    def _issuers_unique(self) -> AuthSettings:
+        seen = [c.issuer.strip().rstrip("/") for c in self.clients]
+        if len(seen) != len(set(seen)):
+            raise ValueError("auth.clients names the same issuer twice")
+        return self
 
 
 class FhirSettings(_Section):

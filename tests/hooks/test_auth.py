@@ -327,21 +327,39 @@ def test_skew_tolerated_within_setting(key, tmp_path, sqlite_url) -> None:
     assert caller.issuer == ISSUER
 
 
-def test_misconfigured_clients_refused_when_built(tmp_path, sqlite_url) -> None:
-    from cds_service.config import Settings
+@pytest.mark.parametrize(
+    ("clients", "message"),
+    [
+        (
+            f'[[auth.clients]]\nissuer = "{ISSUER}"\njwks_url = "https://a.example/j"\n'
+            f'[[auth.clients]]\nissuer = "{ISSUER}/"\njwks_url = "https://b.example/j"\n',
+            "same issuer twice",
+        ),
+        (f'[[auth.clients]]\nissuer = "{ISSUER}"\n', "needs jwks_file"),
+    ],
+)
+def test_misconfigured_clients_refused_at_load(clients, message, tmp_path) -> None:
+    """A client that cannot be verified, or an issuer named twice, stops start-up with a
+    one-line configuration error instead of failing every call later."""
+    from cds_service.config import load_settings
+    from cds_service.errors import UserError
 
-    store = Store(sqlite_url)
-    twice = Settings(
-        auth={
-            "clients": [
-                {"issuer": ISSUER, "jwks_url": "https://a.example/j"},
-                {"issuer": ISSUER + "/", "jwks_url": "https://b.example/j"},
-            ]
-        }
+    path = tmp_path / "tonicity.toml"
+    path.write_text(clients, encoding="utf-8")
+    with pytest.raises(UserError, match=message):
+        load_settings(path)
+
+
+def test_authenticator_rechecks_clients_it_is_given(tmp_path, sqlite_url) -> None:
+    """Settings built without validation (model_construct) are still refused when the
+    Authenticator is built."""
+    from cds_service.config import AuthSettings, ClientSettings, Settings
+
+    keyless = ClientSettings.model_construct(
+        issuer=ISSUER, jwks_file=None, jwks_url=None, jku_allowlist=[], fhir_servers=[]
     )
-    with pytest.raises(ValueError, match="configured twice"):
-        authenticator(twice, store)
-    keyless = Settings(auth={"clients": [{"issuer": ISSUER}]})
+    config = Settings(auth=AuthSettings.model_construct(required=True, clients=[keyless]))
+    store = Store(sqlite_url)
     with pytest.raises(ValueError, match="jwks_file"):
-        authenticator(keyless, store)
+        authenticator(config, store)
     store.close()
