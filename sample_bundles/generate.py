@@ -25,8 +25,8 @@ generic name as text, which is what a reader relies on.
 Expectations follow the finding table of DESIGN.md: Na < 135 mmol/L is hyponatremia; measured
 serum osmolality < 275 mOsm/kg hypotonic, 275-295 isotonic, > 295 hypertonic; osmolal gap
 (measured - calculated) > 10; urine osmolality < 100 dilute; urine sodium <= 30 low. Calculated
-osmolality below is 2 Na + glucose/18 + BUN/2.8 (mg/dL inputs; Worthley 1987 / common
-practice), used only to place each invented patient clearly on one side of each threshold.
+osmolality below is 2 Na + glucose/18 + BUN/2.8 (mg/dL inputs; Dorwart and Chalmers 1975,
+from memory), used only to place each invented patient clearly on one side of each threshold.
 """
 
 from __future__ import annotations
