@@ -10,8 +10,10 @@ Clinical inputs: serum sodium < 135 mmol/L is hyponatremia, < 125 profound (Spas
 from __future__ import annotations
 
 import json
+import logging
 
 import pytest
+import respx
 from fastapi.testclient import TestClient
 from sqlalchemy import select
 
@@ -20,6 +22,7 @@ from cds_service.hooks.registry import SERVICES
 from cds_service.store.schema import CardLog, Feedback
 from tests.hooks.conformance import check_response, empties
 from tests.hooks.fhirdata import (
+    FHIR_BASE,
     NA,
     NOW,
     OSM,
@@ -89,6 +92,8 @@ def test_profound_hyponatremia_without_osmolality(client: TestClient, settings) 
     assert card["selectionBehavior"] == "any"
     link = card.get("links", [{}])[0]
     assert link.get("url", "").startswith(f"{settings.server.public_base_url}/trend/")
+    trend = client.get(link["url"].removeprefix(settings.server.public_base_url))
+    assert trend.status_code == 200  # the snapshot behind the link was saved
     # the card log holds the card, the patient only as a hash
     store = client.app.state.store
     with store.session() as s:
@@ -280,3 +285,34 @@ def test_lab_results_with_osmolality_reach_the_engine(client: TestClient) -> Non
     codes = {c["source"]["topic"]["code"] for c in result["cards"]}
     assert "hyponatremia-tonicity-unknown" not in codes  # a measured osmolality is present
     assert NA[0] == "2951-2"
+
+
+def _audit_lines(caplog) -> list[dict]:  # type: ignore[no-untyped-def]
+    return [r.fields for r in caplog.records if r.name == "tonicity.audit"]
+
+
+def test_one_audit_line_per_hook_call_without_raw_patient_id(client: TestClient, caplog) -> None:  # type: ignore[no-untyped-def]
+    caplog.set_level(logging.INFO)
+    ok = client.post(WORKUP, json=hook_request(observations=sodium_series(121)))
+    client.post(WORKUP, json=hook_request(with_prefetch=False))
+    lines = _audit_lines(caplog)
+    assert [line["status"] for line in lines] == [200, 412]
+    assert set(lines[0]["finding_codes"]) == {
+        c["source"]["topic"]["code"] for c in ok.json()["cards"]
+    }
+    assert lines[0]["service"] == "sodium-workup" and lines[0]["patient_hash"]
+    assert "lvh-pt-1042" not in json.dumps(lines)
+
+
+@respx.mock
+def test_fhir_access_token_never_reaches_logs_or_response(client: TestClient, caplog) -> None:  # type: ignore[no-untyped-def]
+    caplog.set_level(logging.DEBUG)
+    token = "fhir-token-7d1e9c0b-must-stay-secret"
+    respx.get(url__startswith=FHIR_BASE).respond(500, text=f"echo {token}")
+    body = hook_request(with_prefetch=False, fhir_server=FHIR_BASE, token=token)
+    response = client.post(WORKUP, json=body)
+    assert response.status_code == 412  # the FHIR server failed: required data not available
+    assert respx.calls and respx.calls.last.request.headers["authorization"] == f"Bearer {token}"
+    assert token not in response.text
+    logged = caplog.text + json.dumps([getattr(r, "fields", {}) for r in caplog.records])
+    assert token not in logged
