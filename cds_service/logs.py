@@ -27,8 +27,10 @@ from datetime import UTC, datetime
 from typing import Any
 
 from cds_service.config import Settings
+from cds_service.errors import UserError
 
 AUDIT_LOGGER = "tonicity.audit"
+_LEVELS = ("DEBUG", "INFO", "WARNING", "ERROR", "CRITICAL")
 DEFAULT_SALT = "change-me-in-production"  # the shipped default of logging.patient_id_salt
 
 _request_id: ContextVar[str | None] = ContextVar("tonicity_request_id", default=None)
@@ -91,13 +93,18 @@ class JsonFormatter(logging.Formatter):
 
 def configure_logging(settings: Settings) -> None:
     """Send every log record (ours, uvicorn's, libraries') as JSON lines to stderr."""
+    level = settings.logging.level.upper()
+    if level not in _LEVELS:
+        raise UserError(
+            f"logging.level {settings.logging.level!r} is not one of {', '.join(_LEVELS)}"
+        )
     handler = logging.StreamHandler(sys.stderr)
     handler.setFormatter(JsonFormatter())
     root = logging.getLogger()
     for old in list(root.handlers):
         root.removeHandler(old)
     root.addHandler(handler)
-    root.setLevel(settings.logging.level.upper())
+    root.setLevel(level)
     for name in ("uvicorn", "uvicorn.error", "uvicorn.access"):
         lib = logging.getLogger(name)
         lib.handlers.clear()

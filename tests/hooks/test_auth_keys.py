@@ -10,10 +10,19 @@ import httpx
 import jwt
 import pytest
 import respx
+from hypothesis import given
+from hypothesis import strategies as st
 
 from cds_service.cli import main
 from cds_service.commands.keys import thumbprint
-from cds_service.hooks.auth import AuthError, Caller, fhir_server_allowed, sign_token
+from cds_service.config import ClientSettings
+from cds_service.hooks.auth import (
+    AuthError,
+    Caller,
+    fhir_server_allowed,
+    normalise_base_url,
+    sign_token,
+)
 from cds_service.store import Store
 from tests.fixtures.auth_kit import (
     ENDPOINT,
@@ -161,6 +170,23 @@ def _caller(tmp_path) -> Caller:
 )
 def test_fhir_server_allowlist(server, allowed, tmp_path):
     assert fhir_server_allowed(_caller(tmp_path), server) is allowed
+
+
+@given(
+    path=st.from_regex(r"(/[a-z0-9]{1,8}){0,3}", fullmatch=True),
+    slashes=st.integers(0, 3),
+    extra=st.from_regex(r"/[a-z0-9]{1,8}", fullmatch=True),
+)
+def test_allowlist_laws(path, slashes, extra):
+    """Laws of the allowlist: normalising is idempotent; trailing slashes never matter; a
+    base is never a prefix grant (a longer path below an allowed base is not allowed)."""
+    base = f"https://ehr.larkspur-valley.example{path}"
+    once = normalise_base_url(base + "/" * slashes)
+    assert once is not None and normalise_base_url(once) == once
+    client = ClientSettings(issuer=ISSUER, jwks_url=JWKS_URL, fhir_servers=[base])
+    caller = Caller(ISSUER, None, client)
+    assert fhir_server_allowed(caller, base + "/" * slashes)
+    assert not fhir_server_allowed(caller, base + extra)
 
 
 def test_anonymous_caller_only_in_local_trial():

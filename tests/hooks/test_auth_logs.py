@@ -143,3 +143,10 @@ def test_audit_never_carries_the_raw_id(pid):
         logger.removeHandler(handler)
         logger.setLevel(old)
     assert buffer.getvalue() and pid not in buffer.getvalue()
+
+
+def test_unknown_log_level_is_a_user_error():
+    from cds_service.errors import UserError
+
+    with pytest.raises(UserError, match=r"logging\.level"):
+        configure_logging(Settings(logging={"level": "chatty"}))
