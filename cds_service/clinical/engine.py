@@ -12,12 +12,15 @@ from collections.abc import Iterable
 from cds_service.clinical.context import Analyte, ClinicalContext, RejectedResult
 from cds_service.clinical.correction import correction_finding
 from cds_service.clinical.findings import Finding, FindingCode, InputUsed, Urgency
-from cds_service.clinical.notes import CAUTION, LABELS, num
+from cds_service.clinical.notes import CAUTION, LABELS, num, shorten
 from cds_service.clinical.orders import order_findings
 from cds_service.clinical.thresholds import Thresholds
 from cds_service.clinical.workup import workup_findings
 
 __all__ = ["evaluate_orders", "evaluate_workup"]
+
+#: Findings are returned most urgent first (stable within one urgency).
+_URGENCY_ORDER = {Urgency.CRITICAL: 0, Urgency.WARNING: 1, Urgency.INFO: 2}
 
 
 def _out_of_scope(ctx: ClinicalContext, th: Thresholds) -> Finding | None:
@@ -36,27 +39,28 @@ def _out_of_scope(ctx: ClinicalContext, th: Thresholds) -> Finding | None:
     )
 
 
+def _label(r: RejectedResult) -> str:
+    return LABELS[r.analyte] if r.analyte else "Result"
+
+
 def _implausible(rejected: Iterable[RejectedResult]) -> Finding | None:
     items = list(rejected)
     if not items:
         return None
     first = items[0]
-    label = LABELS[first.analyte] if first.analyte else "A result"
-    more = f" and {len(items) - 1} more" if len(items) > 1 else ""
-    summary = f"{label} '{first.raw}' not used: {first.reason}"
-    if len(summary) + len(more) >= 140:
-        summary = summary[: 136 - len(more)].rstrip() + "…"
+    lead = f"{_label(first)} '{first.raw}'"
+    if len(items) > 1:
+        lead = f"{len(items)} results not used, including {lead}"
+    else:
+        lead += " not used"
     return Finding(
         code=FindingCode.IMPLAUSIBLE,
         urgency=Urgency.INFO,
-        summary=summary + more,
-        details=tuple(
-            f"- {LABELS[r.analyte] if r.analyte else 'Result'} {r.raw} ({r.source_id}): "
-            f"{r.reason}" for r in items
-        ),
+        summary=shorten(f"{lead}: {first.reason}", 139),
+        details=tuple(f"- {_label(r)} {r.raw} ({r.source_id}): {r.reason}" for r in items),
         inputs=tuple(
-            InputUsed(label=LABELS[r.analyte] if r.analyte else "Result", value=r.raw, unit="",
-                      time=r.time, source_id=r.source_id, note=r.reason)
+            InputUsed(label=_label(r), value=r.raw, unit="", time=r.time,
+                      source_id=r.source_id, note=r.reason)
             for r in items
         ),
         next_steps=("Check the result with the laboratory and repeat the test if needed.",),
@@ -82,7 +86,7 @@ def _assemble(ctx: ClinicalContext, th: Thresholds, found: list[Finding]) -> lis
     out: dict[FindingCode, Finding] = {}
     for f in found:
         out.setdefault(f.code, f)
-    return list(out.values())
+    return sorted(out.values(), key=lambda f: _URGENCY_ORDER[f.urgency])
 
 
 def evaluate_workup(ctx: ClinicalContext, th: Thresholds) -> list[Finding]:

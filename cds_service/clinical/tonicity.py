@@ -146,7 +146,7 @@ def _isotonic(c: Chemistry, head: str) -> _Part:
 
 
 def _hypertonic(c: Chemistry, head: str) -> _Part:
-    values, lines = _corrected(c)
+    values, lines = _corrected(c) if c.call.hyperglycemia else ([], [])
     if values:
         summary = (f"Sodium {num(c.sodium.value)} mmol/L with glucose "
                    f"{num(c.val(Analyte.GLUCOSE) or 0, 0)} mg/dL: corrected sodium "

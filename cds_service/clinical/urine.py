@@ -89,7 +89,7 @@ def siadh_finding(c: Chemistry) -> Finding | None:
     formulas_: list[str] = []
     sources = [th.cite("urine_sodium_low_at_most"), th.cite("siadh_fe_urate_above")]
     uk = c.val(Analyte.URINE_POTASSIUM)
-    if uk is not None:
+    if uk is not None and c.sodium.value > 0:
         ratio = formulas.urine_serum_electrolyte_ratio(una, uk, c.sodium.value)
         values.append(value(V.URINE_SERUM_ELECTROLYTE_RATIO, ratio, 2))
         formulas_.append(f"(UNa + UK) / SNa = ({num(una)} + {num(uk)}) / {num(c.sodium.value)} "

@@ -167,7 +167,7 @@ def test_implausible_results(th: Thresholds) -> None:
     assert not any("furlongs" in d for d in f.details)
     low = make_ctx({A.SODIUM: 128}, rejected=[bad_na, bad_tsh])
     f = by_code(evaluate_workup(low, th))[C.IMPLAUSIBLE]
-    assert "1 more" in f.summary and any("furlongs" in d for d in f.details)
+    assert f.summary.startswith("2 results not used") and any("furlongs" in d for d in f.details)
 
 
 # --- Orders -------------------------------------------------------------------------------------
@@ -270,7 +270,7 @@ analytes = st.dictionaries(
     st.sampled_from([A.SODIUM, A.OSMOLALITY, A.GLUCOSE, A.UREA_NITROGEN, A.URINE_OSMOLALITY,
                      A.URINE_SODIUM, A.URINE_POTASSIUM, A.TRIGLYCERIDES, A.TOTAL_PROTEIN,
                      A.TSH, A.CORTISOL, A.POTASSIUM, A.URIC_ACID]),
-    st.floats(0.5, 2000),
+    st.one_of(st.floats(0.5, 2000), st.sampled_from([0.0, 1e-9, 1e7])),
 )
 fluids = st.lists(st.builds(
     DraftFluid, resource_id=st.just("MedicationRequest/f"), display=st.sampled_from(
@@ -286,8 +286,10 @@ drafts = st.lists(st.builds(
 
 
 @settings(max_examples=150, deadline=None)
-@given(labs=analytes, na=st.floats(95, 150), fl=fluids, dr=drafts,
-       sex=st.sampled_from(list(Sex)), weight=st.one_of(st.none(), st.floats(30, 200)),
+@given(labs=analytes, na=st.one_of(st.floats(95, 150), st.sampled_from([0.0, 0.5, 1e6])),
+       fl=fluids, dr=drafts,
+       sex=st.sampled_from(list(Sex)),
+       weight=st.one_of(st.none(), st.floats(30, 200), st.just(0.0)),
        conditions=st.lists(st.sampled_from(list(ConditionCategory)), max_size=3),
        history=st.lists(st.tuples(st.floats(0, 100), st.floats(100, 150)), max_size=6))
 def test_engine_laws(labs, na, fl, dr, sex, weight, conditions, history) -> None:  # type: ignore[no-untyped-def]
@@ -327,3 +329,24 @@ def test_supplemental_siadh_criteria_from_fractional_excretions(th: Thresholds) 
     assert "✓ met: fractional excretion of uric acid > 12 % (17.8 %)" in text
     assert "✓ met: fractional excretion of urea > 55 % (100 %)" in text
     assert "✓ met: serum uric acid < 4 mg/dL (3 mg/dL)" in text
+
+
+def test_hypertonic_without_hyperglycemia_names_other_osmoles(th: Thresholds) -> None:
+    # Spasovski 2014 (from memory): > 295 mOsm/kg without hyperglycemia -> mannitol, contrast...
+    ctx = make_ctx({A.SODIUM: 131, A.OSMOLALITY: 318, A.GLUCOSE: 110, A.UREA_NITROGEN: 14},
+                   meds=[("mannitol", "active")])
+    found = by_code(evaluate_workup(ctx, th))
+    hyper = found[C.HYPERTONIC]
+    assert V.CORRECTED_SODIUM_KATZ not in values(hyper)
+    assert "other osmoles" in hyper.summary
+    assert any(d.startswith("mannitol recorded") for d in hyper.details)
+    assert C.DRUG_ASSOCIATED not in found  # an osmotic agent is not a cause of SIADH
+    assert values(found[C.OSMOLAL_GAP])[V.OSMOLAL_GAP] == pytest.approx(318 - 272, abs=0.1)
+
+
+def test_most_urgent_first(th: Thresholds) -> None:
+    series = sodium_series([(22, 112), (1, 124)])
+    ctx = make_ctx({A.OSMOLALITY: 250, A.URINE_SODIUM: 14}, series={A.SODIUM: series})
+    order = [f.urgency for f in evaluate_workup(ctx, th)]
+    rank = {Urgency.CRITICAL: 0, Urgency.WARNING: 1, Urgency.INFO: 2}
+    assert order == sorted(order, key=rank.__getitem__) and order[0] is Urgency.CRITICAL
