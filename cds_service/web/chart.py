@@ -13,8 +13,9 @@ stylesheet may look for carries an SVG id (matplotlib ``gid``):
 from __future__ import annotations
 
 import io
+import math
 import threading
-from datetime import datetime, timedelta
+from datetime import UTC, datetime, timedelta
 from typing import Any
 
 # Palette shared with the stylesheet (cds_service/web/static/tonicity.css).
@@ -80,14 +81,16 @@ def render_trend_svg(payload: dict[str, Any]) -> str:
             ax, strip = fig.add_subplot(), None
         ax.set_facecolor("#fffdf8")
         _draw(ax, payload)
+        lo = window(payload)[0]
+        _draw_starts(ax, payload.get("starts") or [], lo, labels=True)
         bottom = ax
         if strip is not None:
             _draw_markers(strip, markers)
-            _draw_starts(strip, payload.get("starts") or [], labels=False)
+            _draw_starts(strip, payload.get("starts") or [], lo, labels=False)
             bottom = strip
-        locator = mdates.AutoDateLocator(minticks=4, maxticks=9)
-        bottom.xaxis.set_major_locator(locator)
-        bottom.xaxis.set_major_formatter(mdates.DateFormatter("%d %b\n%H:%M"))
+        lo, hi = window(payload)
+        ax.set_xlim(lo, hi)
+        _time_axis(bottom, lo, hi, mdates)
         bottom.set_xlabel("Time (UTC)")
         ax.set_ylabel("Serum sodium (mmol/L)")
         ax.set_title("Serum sodium and correction limits", loc="left", color=INK, fontsize=12)
@@ -106,6 +109,7 @@ def _draw(ax: Any, payload: dict[str, Any]) -> None:
     values = [float(p["value"]) for p in sodium]
     if times:
         ax.plot(times, values, color=TEAL, linewidth=1.6, zorder=3, label="Serum sodium")
+    size = 7 if len(times) <= 30 else 5 if len(times) <= 80 else 3.5  # long stays stay legible
     for i, (t, v, p) in enumerate(zip(times, values, sodium, strict=True)):
         note = p.get("note") or ""
         hollow = "preliminary" in note
@@ -115,15 +119,14 @@ def _draw(ax: Any, payload: dict[str, Any]) -> None:
             [v],
             linestyle="none",
             marker=marker,
-            markersize=7,
-            markeredgewidth=1.6,
+            markersize=size,
+            markeredgewidth=1.6 if size > 5 else 1.0,
             markeredgecolor=TEAL,
             markerfacecolor="white" if hollow else TEAL,
             zorder=4,
             gid=f"sodium-point-{i}",
         )
     _draw_band(ax, payload.get("limits"), times)
-    _draw_starts(ax, payload.get("starts") or [], labels=True)
     if values:
         lo, hi = min(values), max(values)
         limits = payload.get("limits") or {}
@@ -217,34 +220,108 @@ def _draw_markers(strip: Any, markers: list[dict[str, Any]]) -> None:
     strip.grid(True, axis="x", color=GRID, linewidth=0.6)
 
 
-def _draw_starts(ax: Any, starts: list[dict[str, Any]], *, labels: bool) -> None:
+def window(payload: dict[str, Any]) -> tuple[datetime, datetime]:
+    """The time range drawn: results, markers, the band and drafts, with a margin.
+
+    Medications started before it are not stretched into view; they are named at its left
+    edge instead ("started earlier"), so a long-standing drug does not squeeze the results.
+    """
+    times = [_t(p["time"]) for p in payload.get("sodium") or []]
+    times += [_t(m["time"]) for m in payload.get("markers") or []]
+    times += [_t(s["time"]) for s in payload.get("starts") or [] if s.get("kind") == "draft"]
+    lim = payload.get("limits") or {}
+    if lim.get("episode_start") and lim.get("start_value") is not None:
+        times.append(_t(lim["episode_start"]) + timedelta(hours=48))
+    if not times:
+        now = _t(payload["now"]) if payload.get("now") else datetime.now(UTC)
+        times = [now - timedelta(hours=24), now]
+    lo, hi = min(times), max(times)
+    margin = max((hi - lo) * 0.04, timedelta(hours=2))
+    return lo - margin, hi + margin
+
+
+def _time_axis(ax: Any, lo: datetime, hi: datetime, mdates: Any) -> None:
+    """Evenly spaced ticks (no crowding at month ends), about six of them."""
+    hours = (hi - lo).total_seconds() / 3600
+    if hours <= 96:
+        step = next((h for h in (1, 2, 3, 4, 6, 12, 24) if hours / h <= 8), 24)
+        ax.xaxis.set_major_locator(mdates.HourLocator(byhour=range(0, 24, step)))
+        ax.xaxis.set_major_formatter(mdates.DateFormatter("%d %b\n%H:%M"))
+    else:
+        days = max(1, math.ceil(hours / 24 / 7))
+        ax.xaxis.set_major_locator(mdates.DayLocator(interval=days))
+        ax.xaxis.set_major_formatter(mdates.DateFormatter("%d %b"))
+
+
+def _short(label: str) -> str:
+    text = label.split(",")[0].strip()
+    return text if len(text) <= 30 else text[:29] + "…"
+
+
+def _draw_starts(ax: Any, starts: list[dict[str, Any]], lo: datetime, *, labels: bool) -> None:
     """Vertical lines at medication or infusion starts (and drafts, at evaluation time).
 
-    Only the sodium axes carry ids, legend entry and labels; the marker strip repeats the
-    lines as plain guides.
+    Starts within an hour of each other share one label; starts before the drawn window are
+    listed at its left edge. Only the sodium axes carry ids, legend entry and labels; the
+    marker strip repeats the lines as plain guides.
     """
     trans = ax.get_xaxis_transform()
+    earlier: list[str] = []
+    groups: list[tuple[datetime, list[str], bool]] = []
     for i, s in enumerate(starts):
         t = _t(s["time"])
-        colour = CLAY if s.get("associated") else "#6b6b6b"
+        if t < lo:
+            earlier.append(f"{_short(s.get('label', ''))} ({t:%d %b})")
+            if labels:  # keep one id per start: a tick on the left edge
+                ax.plot(
+                    [lo],
+                    [0.985],
+                    transform=trans,
+                    marker=">",
+                    color=CLAY,
+                    markersize=5,
+                    linestyle="none",
+                    gid=f"start-{i}",
+                    clip_on=False,
+                )
+            continue
+        associated = bool(s.get("associated"))
         ax.axvline(
             t,
-            color=colour,
+            color=CLAY if associated else "#6b6b6b",
             linewidth=1.1,
             linestyle="-.",
             zorder=2,
             gid=f"start-{i}" if labels else None,
-            label="Medication or infusion start" if labels and i == 0 else None,
+            label="Medication or infusion start" if labels and not groups else None,
         )
-        if labels:
-            ax.text(
-                _num(t),
-                0.98,
-                f" {s.get('label', '')}"[:40],
-                transform=trans,
-                rotation=90,
-                va="top",
-                ha="right",
-                fontsize=7.5,
-                color=colour,
-            )
+        if groups and t - groups[-1][0] <= timedelta(hours=1):
+            groups[-1][1].append(_short(s.get("label", "")))
+        else:
+            groups.append((t, [_short(s.get("label", ""))], associated))
+    if not labels:
+        return
+    for t, names, associated in groups:
+        ax.text(
+            _num(t),
+            0.98,
+            " " + " + ".join(names),
+            transform=trans,
+            rotation=90,
+            va="top",
+            ha="right",
+            fontsize=7.5,
+            color=CLAY if associated else "#6b6b6b",
+        )
+    if earlier:
+        ax.text(
+            0.01,
+            0.96,
+            "Started earlier: " + "; ".join(earlier),
+            transform=ax.transAxes,
+            va="top",
+            ha="left",
+            fontsize=7.5,
+            color=CLAY,
+            bbox={"facecolor": "white", "edgecolor": "none", "alpha": 0.8, "pad": 1.5},
+        )

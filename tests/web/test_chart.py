@@ -3,12 +3,14 @@
 from __future__ import annotations
 
 import xml.etree.ElementTree as ET
+from dataclasses import replace
+from datetime import timedelta
 
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from cds_service.clinical.thresholds import load_thresholds
-from cds_service.web.chart import render_trend_svg
+from cds_service.web.chart import render_trend_svg, window
 from cds_service.web.snapshots import snapshot_payload
 from tests.web.conftest import make_context, make_findings
 
@@ -97,3 +99,16 @@ def test_point_count_equals_result_count(sodium) -> None:
 
 def test_rendering_is_deterministic() -> None:
     assert _render() == _render()
+
+
+def test_early_medication_start_is_named_not_stretched_into_view() -> None:
+    """A drug started weeks before the first result keeps its id but not the x-range."""
+    ctx = make_context()
+    early = replace(ctx.medications[0], start=ctx.now - timedelta(days=30))
+    ctx = replace(ctx, medications=(early, *ctx.medications[1:]))
+    payload = snapshot_payload(ctx, make_findings(), load_thresholds())
+    lo, _ = window(payload)
+    assert lo > ctx.now - timedelta(days=5)
+    svg = render_trend_svg(payload)
+    assert len([i for i in _ids(svg) if i.startswith("start-")]) == 3
+    assert "Started earlier: Hydrochlorothiazide 25 mg" in _texts(svg)
