@@ -341,7 +341,8 @@ def test_hypertonic_without_hyperglycemia_names_other_osmoles(th: Thresholds) ->
     assert "other osmoles" in hyper.summary
     assert any(d.startswith("mannitol recorded") for d in hyper.details)
     assert C.DRUG_ASSOCIATED not in found  # an osmotic agent is not a cause of SIADH
-    assert values(found[C.OSMOLAL_GAP])[V.OSMOLAL_GAP] == pytest.approx(318 - 272, abs=0.1)
+    # Dorwart & Chalmers 1975: 318 - (2 x 131 + 110/18 + 14/2.8) = 318 - 273.1 = 44.9
+    assert values(found[C.OSMOLAL_GAP])[V.OSMOLAL_GAP] == pytest.approx(44.9, abs=0.05)
 
 
 def test_most_urgent_first(th: Thresholds) -> None:
