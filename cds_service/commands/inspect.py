@@ -72,7 +72,8 @@ def split_input(data: Any) -> tuple[list[Any], list[Any], str | None]:
 def _format_value(line: Any) -> str:
     if line.value is None:
         return line.raw or ""
-    return f"{line.value:g} {line.unit}" + (f"  (sent {line.raw})" if line.raw else "")
+    shown = f"{line.value:g} {line.unit}"
+    return shown + (f"  (sent {line.raw})" if line.raw and line.raw != shown else "")
 
 
 def table(report: Any) -> str:
@@ -88,7 +89,11 @@ def table(report: Any) -> str:
                 line.reason,
             )
         )
-    widths = [min(max(len(r[i]) for r in rows), 48) for i in range(5)]
+    # the resource key is never cut (integrators search for it); long labels are
+    widths = [
+        max(len(r[i]) for r in rows) if i == 0 else min(max(len(r[i]) for r in rows), 48)
+        for i in range(5)
+    ]
     out = []
     for row in rows:
         cells = [row[i][: widths[i]].ljust(widths[i]) for i in range(5)]

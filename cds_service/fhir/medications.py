@@ -12,7 +12,8 @@ from cds_service.fhir._json import codings, concept_text, items, obj, text
 
 RXNORM_SYSTEM = "http://www.nlm.nih.gov/research/umls/rxnorm"
 _BRACKETS = re.compile(r"\[[^\]]*\]|\([^)]*\)")
-_SPLIT = re.compile(r"\s+/\s+|\s+\+\s+|\s+and\s+|[,;]")
+_SPLIT = re.compile(r"\s+/\s+|\s+\+\s+|\s+and\s+")
+_CLAUSE = re.compile(r"[,;(]")  # "atorvastatin 40 mg tablet, at night": the name ends at the comma
 _TOKEN = re.compile(r"[a-z][a-z'\-]*|\S+")
 
 
@@ -44,7 +45,8 @@ def generic_names(label: str) -> list[str]:
     """
     _, salts, forms = _vocab()
     out: list[str] = []
-    for part in _SPLIT.split(_BRACKETS.sub(" ", label.lower())):
+    product = _CLAUSE.split(_BRACKETS.sub(" ", label.lower()), maxsplit=1)[0]
+    for part in _SPLIT.split(product):
         words: list[str] = []
         for token in part.split():
             if token[0].isdigit() or "%" in token or token in forms:

@@ -19,6 +19,7 @@ from tests.fhir.factory import PATIENT_ID, bundle, ingest, line_for, med_request
         ("Sertraline hydrochloride 50 mg tablet", ["sertraline hydrochloride", "sertraline"]),
         ("Carbamazepine 200 MG Extended Release Oral Tablet [Tegretol]", ["carbamazepine"]),
         ("furosemide", ["furosemide"]),
+        ("atorvastatin 40 mg oral tablet, at night", ["atorvastatin"]),
         ("12.5 mg", []),
     ],
 )
