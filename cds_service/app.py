@@ -13,7 +13,6 @@ answered as 400), 401 for failed client authentication (with ``WWW-Authenticate:
 
 from __future__ import annotations
 
-import json
 import logging
 import time
 from collections.abc import AsyncIterator, Awaitable, Callable, MutableMapping
@@ -31,6 +30,7 @@ from cds_service import logs, ops
 from cds_service.config import Settings
 from cds_service.errors import UserError
 from cds_service.hooks.auth import Authenticator, AuthError
+from cds_service.hooks.models import strict_json
 from cds_service.hooks.registry import SERVICES, discovery
 from cds_service.hooks.service import HookError, evaluate
 from cds_service.store import Store
@@ -92,11 +92,9 @@ async def read_json(request: Request, limit: int) -> Any:
     if not raw.strip():
         raise HookError(400, "the request body is empty; a JSON object is required")
     try:
-        return json.loads(raw)
-    except (UnicodeDecodeError, json.JSONDecodeError) as exc:
-        raise HookError(
-            400, f"the request body is not valid JSON ({exc.__class__.__name__})"
-        ) from None
+        return strict_json(raw)
+    except ValueError as exc:
+        raise HookError(400, f"the request body is not valid JSON ({exc})") from None
 
 
 def _local_trial(settings: Settings) -> bool:

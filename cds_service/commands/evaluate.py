@@ -43,9 +43,11 @@ def read_json(path: str, what: str) -> Any:
         raw = Path(path).read_bytes()
     except OSError as exc:
         raise UserError(f"cannot read {what} {path}: {exc.strerror or exc}") from None
+    from cds_service.hooks.models import strict_json
+
     try:
-        return json.loads(raw)
-    except (UnicodeDecodeError, json.JSONDecodeError) as exc:
+        return strict_json(raw)
+    except ValueError as exc:
         raise UserError(f"{what} {path} is not valid JSON: {exc}") from None
 
 

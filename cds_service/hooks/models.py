@@ -8,6 +8,7 @@ fields are omitted rather than sent as ``null``, and no string, array or object 
 
 from __future__ import annotations
 
+import json
 from typing import Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, model_validator
@@ -154,3 +155,19 @@ def to_json(model: BaseModel) -> dict[str, Any]:
     if isinstance(model, HookResponse):
         data.setdefault("cards", [])
     return data
+
+
+def _no_constant(name: str) -> Any:
+    raise ValueError(f"{name} is not a JSON number")
+
+
+def strict_json(raw: bytes | str) -> Any:
+    """RFC 8259 JSON: NaN and Infinity refused, too-deep nesting refused (ValueError)."""
+    try:
+        return json.loads(raw, parse_constant=_no_constant)
+    except RecursionError:
+        raise ValueError("nested too deeply") from None
+    except UnicodeDecodeError:
+        raise ValueError("not UTF-8") from None
+    except json.JSONDecodeError as exc:
+        raise ValueError(f"{exc.msg} at line {exc.lineno} column {exc.colno}") from None

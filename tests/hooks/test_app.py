@@ -171,6 +171,8 @@ def test_operation_outcome_for_optional_key_is_noted_on_cards(client: TestClient
         (b"{not json", "not valid JSON"),
         (b"", "empty"),
         (b"[1, 2]", "JSON object"),
+        (b'{"hook": NaN}', "NaN is not a JSON number"),  # RFC 8259 section 6: no NaN
+        (b"[" * 100_000 + b"]" * 100_000, "nested too deeply"),
         (json.dumps({"hook": "patient-view"}).encode(), "invalid hook request"),
         (json.dumps(hook_request("order-sign")).encode(), "answers 'patient-view'"),
     ],
