@@ -60,6 +60,9 @@ class OrderContext:
         labs = (self.sodium, self.ctx.current.get(Analyte.BODY_WEIGHT))
         return tuple(used(r) for r in labs if r is not None)
 
+    def sodium_input(self) -> tuple[InputUsed, ...]:
+        return () if self.sodium is None else (used(self.sodium),)
+
     def sodium_values(self) -> list[Value]:
         return [] if self.sodium is None else [value(V.SERUM_SODIUM, self.sodium.value)]
 
@@ -201,7 +204,7 @@ def drug_order_finding(o: OrderContext) -> Finding | None:
                         f"{first.drug_class.label}, associated with hyponatremia", 139),
         details=_drug_lines(matches),
         values=tuple(o.sodium_values()),
-        inputs=o.inputs()[:1],
+        inputs=o.sodium_input(),
         sources=unique([m.drug_class.citation for m in matches]),
         next_steps=("Consider an alternative, or recheck sodium soon after starting.",),
         cautions=(CAUTION,),
@@ -233,7 +236,7 @@ def vaptan_finding(o: OrderContext) -> Finding | None:
                         139),
         details=tuple(details),
         values=tuple(values),
-        inputs=o.inputs()[:1],
+        inputs=o.sodium_input(),
         sources=unique([first.drug_class.citation, o.th.cite("correction_limit_24h"),
                         cite("samsca_label")]),
         next_steps=("Plan sodium checks and a limit before the first dose.",),

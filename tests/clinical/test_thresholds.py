@@ -93,3 +93,24 @@ def test_infusate_classes_match_their_sodium_plus_potassium() -> None:
     for key, tonicity in expected.items():
         assert table[key].tonicity == tonicity
         assert fluid_tonicity(table[key].sodium + table[key].potassium, th) == tonicity
+
+
+def test_malformed_entries_are_rejected_on_load() -> None:
+    from cds_service.clinical._data import DataFileError
+    from cds_service.clinical.drugs import _load_class
+    from cds_service.clinical.infusates import _load
+
+    good_class = {"label": "x", "role": "associated", "diuretic": False, "mechanism": "m",
+                  "source": "liamis2008", "from_memory": True, "rxnorm_from_memory": True,
+                  "drugs": {"sertraline": "36437"}}
+    assert _load_class("ok", good_class).drugs["sertraline"] == "36437"
+    for bad in ({"drugs": {"Sertraline": "36437"}}, {"drugs": {"x": "R123"}},
+                {"role": "cause"}, {"source": "nobody2020"}, {"diuretic": "no"}):
+        with pytest.raises(DataFileError):
+            _load_class("bad", {**good_class, **bad})
+    good_fluid = {"label": "x", "aliases": [], "sodium": 77, "potassium": 0, "osmolarity": 154,
+                  "tonicity": "hypotonic", "source": "common practice", "from_memory": True}
+    assert _load("ok", good_fluid).sodium == 77
+    for bad in ({"tonicity": "isotonic"}, {"sodium": -1}, {"osmolarity": "high"}):
+        with pytest.raises(DataFileError):
+            _load("bad", {**good_fluid, **bad})
