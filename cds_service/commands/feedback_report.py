@@ -13,7 +13,10 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from sqlalchemy.exc import SQLAlchemyError
+    from pathlib import Path
+
+    from sqlalchemy import make_url
+    from sqlalchemy.exc import ArgumentError, SQLAlchemyError
 
     from cds_service.config import load_settings
     from cds_service.errors import UserError
@@ -21,6 +24,13 @@ def run(args: argparse.Namespace) -> int:
     from cds_service.store.feedback import feedback_report
 
     settings = load_settings(args.config)
+    try:
+        url = make_url(settings.storage.url)
+    except ArgumentError:
+        raise UserError("storage.url is not a database URL") from None
+    if url.get_backend_name() == "sqlite" and url.database and url.database != ":memory:":
+        if not Path(url.database).exists():  # do not create an empty store just to report on it
+            raise UserError(f"no store at {url.database} (set storage.url or run from its folder)")
     try:
         store = Store(settings.storage.url)
     except (ValueError, SQLAlchemyError) as exc:

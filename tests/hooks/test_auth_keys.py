@@ -325,3 +325,24 @@ def test_keys_user_errors_are_one_line(argv, message, capsys, tmp_path, monkeypa
     assert main(argv) == 2
     err = capsys.readouterr().err
     assert message in err and "Traceback" not in err and err.count("\n") == 1
+
+
+def test_short_rsa_key_refused(tmp_path, sqlite_url):
+    """RSA keys under 2048 bits are refused (NIST SP 800-131A, as PyJWT enforces on request)."""
+    import warnings
+
+    from cryptography.hazmat.primitives.asymmetric import rsa
+
+    weak = rsa.generate_private_key(public_exponent=65537, key_size=1024)  # noqa: S505 (the point)
+    jwk = jwt.algorithms.RSAAlgorithm.to_jwk(weak.public_key(), as_dict=True)
+    jwks = {"keys": [jwk | {"kid": "weak", "use": "sig"}]}
+    config = settings_for(tmp_path, None, client={"jwks_url": JWKS_URL})
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        token = jwt.encode(claims(), weak, algorithm="RS256", headers={"kid": "weak", "typ": "JWT"})
+    store = Store(sqlite_url)
+    with respx.mock() as router:
+        router.get(JWKS_URL).mock(return_value=httpx.Response(200, json=jwks))
+        with pytest.raises(AuthError, match="key too weak"):
+            run(authenticator(config, store).authenticate(f"Bearer {token}", ENDPOINT))
+    store.close()

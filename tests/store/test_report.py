@@ -125,3 +125,13 @@ def test_feedback_report_command(tmp_path, capsys) -> None:
 def test_feedback_report_command_bad_config(tmp_path, capsys) -> None:
     assert main(["feedback-report", "--config", str(tmp_path / "missing.toml")]) == 2
     assert "cannot read config" in capsys.readouterr().err
+
+
+def test_feedback_report_does_not_create_a_missing_store(tmp_path, capsys) -> None:
+    missing = tmp_path / "nowhere.db"
+    config = tmp_path / "tonicity.toml"
+    config.write_text(f'[storage]\nurl = "sqlite:///{missing.as_posix()}"\n', encoding="utf-8")
+    assert main(["feedback-report", "--config", str(config)]) == 2
+    assert "no store at" in capsys.readouterr().err and not missing.exists()
+    config.write_text('[storage]\nurl = "not a url"\n', encoding="utf-8")
+    assert main(["feedback-report", "--config", str(config)]) == 2
