@@ -202,13 +202,24 @@ def reset_osmostat_hint(ctx: ClinicalContext, th: Thresholds) -> str | None:
     )
 
 
-def dilute_urine_lines(th: Thresholds) -> tuple[str, ...]:
-    """Maximum daily urine volume at the minimal urine osmolality for two solute loads."""
+def dilute_urine_lines(
+    th: Thresholds, urine_osmolality: float | None = None, urine_volume_l: float | None = None
+) -> tuple[str, ...]:
+    """Maximum daily urine volume at the minimal urine osmolality for two solute loads, and
+    for the patient's own solute excretion when a 24-h urine volume is known."""
+    minimal = num(th.urine_osmolality_minimal)
     typical = formulas.max_urine_volume(th.solute_load_typical, th.urine_osmolality_minimal)
     low = formulas.max_urine_volume(th.solute_load_low, th.urine_osmolality_minimal)
-    return (
+    lines = [
         f"Maximum urine volume = daily solute load / minimal urine osmolality: "
-        f"{num(th.solute_load_typical)} / {num(th.urine_osmolality_minimal)} = {num(typical)} "
-        f"L/day on a usual diet; {num(th.solute_load_low)} / "
-        f"{num(th.urine_osmolality_minimal)} = {num(low)} L/day on a low-solute diet.",
-    )
+        f"{num(th.solute_load_typical)} / {minimal} = {num(typical)} L/day on a usual diet; "
+        f"{num(th.solute_load_low)} / {minimal} = {num(low)} L/day on a low-solute diet."
+    ]
+    if urine_osmolality is not None and urine_volume_l is not None:
+        solute = urine_osmolality * urine_volume_l
+        own = formulas.max_urine_volume(solute, th.urine_osmolality_minimal)
+        lines.append(
+            f"This patient's solute excretion = {num(urine_osmolality)} × {num(urine_volume_l, 2)}"
+            f" L = {num(solute, 0)} mOsm/day, allowing at most {num(own)} L/day of urine."
+        )
+    return tuple(lines)

@@ -35,10 +35,10 @@ def dilute_urine_finding(c: Chemistry) -> Finding | None:
         details=(
             "Vasopressin is suppressed; consider primary polydipsia, low solute intake "
             "(beer, 'tea and toast') or excess hypotonic fluid.",
-            *dilute_urine_lines(c.th),
+            *dilute_urine_lines(c.th, uosm, c.val(Analyte.URINE_VOLUME_24H)),
         ),
         values=(value(V.URINE_OSMOLALITY, uosm), value(V.SERUM_SODIUM, c.sodium.value)),
-        inputs=c.inputs(Analyte.URINE_OSMOLALITY),
+        inputs=c.inputs(Analyte.URINE_OSMOLALITY, Analyte.URINE_VOLUME_24H),
         sources=(c.th.cite("urine_osmolality_dilute_below"),
                  c.th.cite("urine_osmolality_minimal")),
         next_steps=("Review fluid and solute intake.",),

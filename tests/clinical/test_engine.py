@@ -351,3 +351,12 @@ def test_most_urgent_first(th: Thresholds) -> None:
     order = [f.urgency for f in evaluate_workup(ctx, th)]
     rank = {Urgency.CRITICAL: 0, Urgency.WARNING: 1, Urgency.INFO: 2}
     assert order == sorted(order, key=rank.__getitem__) and order[0] is Urgency.CRITICAL
+
+
+def test_dilute_urine_with_measured_solute_excretion(th: Thresholds) -> None:
+    # Berl 2008 (from memory): urine flow = solute excretion / urine osmolality; 80 mOsm/kg
+    # in 3 L is 240 mOsm/day, which at 50 mOsm/kg allows at most 4.8 L/day.
+    ctx = make_ctx({A.SODIUM: 126, A.OSMOLALITY: 259, A.URINE_OSMOLALITY: 80,
+                    A.URINE_VOLUME_24H: 3.0})
+    f = by_code(evaluate_workup(ctx, th))[C.DILUTE_URINE]
+    assert any("240 mOsm/day" in d and "4.8 L/day" in d for d in f.details)
