@@ -11,7 +11,7 @@ from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
-from fastapi import APIRouter, Request
+from fastapi import APIRouter, Body, Request
 from fastapi.responses import FileResponse, HTMLResponse, JSONResponse, Response
 from markupsafe import Markup
 from pydantic import BaseModel, Field
@@ -118,6 +118,11 @@ def create_router() -> APIRouter:
     ) -> Response:
         return _sample_request(request, name, hook, shift)
 
+    @router.post("/workbench/request")
+    def bundle_request(record: Any = Body(...), hook: str = "patient-view") -> Response:
+        """A pasted or uploaded patient Bundle turned into the hook request a client sends."""
+        return _build(record, hook)
+
     @router.post("/workbench/render")
     def render(body: RenderBody) -> JSONResponse:
         if sum(len(t) for t in body.texts) > 500_000:
@@ -170,20 +175,20 @@ def _sample_request(request: Request, name: str, hook: str | None, shift: bool) 
     for a fixed day plays out at the service's own clock, as ``tonicity replay`` does.
     """
     from cds_service.commands.replay import shift_times
-    from cds_service.errors import UserError
-    from cds_service.hooks.client import build_request
 
     try:
         sample, path = samples.find_sample(_sample_dir(request), name)
     except samples.SampleNotFound:
         return _problem(404, "no such sample")
-    body = json.loads(path.read_text(encoding="utf-8"))
+    try:
+        body = json.loads(path.read_text(encoding="utf-8"))
+    except (OSError, ValueError):
+        return _problem(400, "this sample is not readable JSON")
     if not (isinstance(body, dict) and isinstance(body.get("hook"), str)):
-        chosen = hook or sample.hook or "patient-view"
-        try:
-            body = build_request(body, chosen)
-        except UserError as exc:
-            return _problem(400, f"cannot build a {chosen} request from this sample: {exc}")
+        built = _build(body, hook or sample.hook or "patient-view")
+        if built.status_code != 200:
+            return built
+        body = json.loads(built.body)
     if shift and sample.now:
         try:
             written_for = datetime.fromisoformat(sample.now)
@@ -193,3 +198,18 @@ def _sample_request(request: Request, name: str, hook: str | None, shift: bool) 
             written_for = written_for.replace(tzinfo=UTC)
         body = shift_times(body, datetime.now(UTC) - written_for)
     return JSONResponse(body)
+
+
+def _build(record: object, hook: str) -> JSONResponse:
+    """The hook request for a patient Bundle (a hook request passes through unchanged)."""
+    from cds_service.errors import UserError
+    from cds_service.hooks.client import build_request
+
+    if isinstance(record, dict) and isinstance(record.get("hook"), str):
+        return JSONResponse(record)
+    if not isinstance(record, dict) or record.get("resourceType") != "Bundle":
+        return _problem(400, "expected a CDS Hooks request or a FHIR Bundle of one patient")
+    try:
+        return JSONResponse(build_request(record, hook))
+    except UserError as exc:
+        return _problem(400, f"cannot build a {hook} request from this Bundle: {exc}")

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import json
 import re
 from pathlib import Path
 
@@ -124,3 +125,32 @@ def test_real_sample_folder_is_found_by_default(store: Store) -> None:
     app = make_app(store, None)
     listed = TestClient(app).get("/workbench/samples").json()["samples"]
     assert listed and all(s["kind"] in ("request", "bundle") for s in listed)
+
+
+def test_pasted_bundle_becomes_a_request(client: TestClient, tmp_path: Path) -> None:
+    bundle = json.loads((tmp_path / "samples" / "lv-bundle.json").read_text())
+    r = client.post("/workbench/request?hook=patient-view", json=bundle)
+    assert r.status_code == 200
+    assert r.json()["context"]["patientId"] == "lvh-pt-0042"
+    assert client.post("/workbench/request", json=SAMPLE_REQUEST).json() == SAMPLE_REQUEST
+
+
+@pytest.mark.parametrize(
+    "body",
+    [
+        {"resourceType": "Patient", "id": "x"},
+        {"resourceType": "Bundle", "type": "collection", "entry": []},  # no Patient
+        [1, 2, 3],
+    ],
+)
+def test_pasted_nonsense_gets_a_clear_400(client: TestClient, body: object) -> None:
+    r = client.post("/workbench/request", json=body)
+    assert 400 <= r.status_code < 500
+    assert r.json()["resourceType"] == "OperationOutcome"
+
+
+def test_unknown_hook_for_a_bundle_is_a_400(client: TestClient, tmp_path: Path) -> None:
+    bundle = json.loads((tmp_path / "samples" / "lv-bundle.json").read_text())
+    r = client.post("/workbench/request?hook=chart-open", json=bundle)
+    assert r.status_code == 400
+    assert "unknown hook" in r.json()["issue"][0]["diagnostics"]

@@ -9,6 +9,7 @@
     "order-select": "sodium-order-select",
     "order-sign": "sodium-order-sign",
   };
+  const SERVICE_HOOK = Object.fromEntries(Object.entries(HOOK_SERVICE).map(([h, s]) => [s, h]));
   const INDICATOR_TEXT = { critical: "Critical", warning: "Warning", info: "Info" };
 
   const $ = (id) => document.getElementById(id);
@@ -111,6 +112,21 @@
     } catch (e) {
       setStatus(`The request is not valid JSON: ${e.message}`, true);
       return;
+    }
+    if (body && body.resourceType === "Bundle" && !body.hook) {
+      const hook = SERVICE_HOOK[$("service").value] || "patient-view";
+      setStatus(`Building a ${hook} request from the Bundle…`);
+      const r = await fetch(`/workbench/request?hook=${encodeURIComponent(hook)}`, {
+        method: "POST", headers: { "Content-Type": "application/json" }, body: JSON.stringify(body),
+      });
+      const built = await r.json().catch(() => null);
+      if (!r.ok || !built) {
+        const why = built && built.issue ? built.issue.map((i) => i.diagnostics).join("; ") : r.status;
+        setStatus(`The Bundle could not become a request: ${why}`, true);
+        return;
+      }
+      body = built;
+      $("request-body").value = JSON.stringify(body, null, 2);
     }
     const service = $("service").value || HOOK_SERVICE[body && body.hook];
     if (!service) {
