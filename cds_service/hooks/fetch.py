@@ -17,6 +17,8 @@ from urllib.parse import urljoin, urlsplit
 
 import httpx
 
+from cds_service.hooks.models import strict_json
+
 _log = logging.getLogger(__name__)
 
 
@@ -35,9 +37,17 @@ class FetchError(Exception):
         self.kind = kind
 
 
+#: Largest FHIR response page read (bytes); a larger one is refused, not buffered.
+MAX_PAGE_BYTES = 20_000_000
+
+
 def _same_server(url: str, base: str) -> bool:
+    """Is ``url`` on the FHIR server ``base`` (same scheme, host, port, under its path)?"""
     u, b = urlsplit(url), urlsplit(base)
-    return (u.scheme, u.netloc) == (b.scheme, b.netloc) and u.path.startswith(b.path.rstrip("/"))
+    root = b.path.rstrip("/")
+    return (u.scheme, u.netloc.lower()) == (b.scheme, b.netloc.lower()) and (
+        u.path == root or u.path.startswith(root + "/")
+    )
 
 
 def _next_link(bundle: dict[str, Any]) -> str | None:
@@ -49,19 +59,21 @@ def _next_link(bundle: dict[str, Any]) -> str | None:
 
 async def _get(http: httpx.AsyncClient, url: str, headers: dict[str, str]) -> dict[str, Any]:
     try:
-        response = await http.get(url, headers=headers)
+        async with http.stream("GET", url, headers=headers) as response:
+            status = response.status_code
+            raw = await _read_capped(response) if status == 200 else b""
     except httpx.TimeoutException:
         raise FetchError("timeout", "FHIR server did not answer in time") from None
     except httpx.HTTPError as exc:
         raise FetchError("network", f"FHIR server unreachable ({type(exc).__name__})") from None
-    if response.status_code in (401, 403):
-        raise FetchError("auth", f"FHIR server refused access ({response.status_code})")
-    if response.status_code == 404:
+    if status in (401, 403):
+        raise FetchError("auth", f"FHIR server refused access ({status})")
+    if status == 404:
         raise FetchError("not-found", "FHIR server has no such resource (404)")
-    if response.status_code != 200:
-        raise FetchError("http", f"FHIR server answered {response.status_code}")
+    if status != 200:
+        raise FetchError("http", f"FHIR server answered {status}")
     try:
-        body = response.json()
+        body = strict_json(raw)
     except ValueError:
         raise FetchError("invalid", "FHIR server sent something that is not JSON") from None
     if not isinstance(body, dict) or not isinstance(body.get("resourceType"), str):
@@ -69,6 +81,17 @@ async def _get(http: httpx.AsyncClient, url: str, headers: dict[str, str]) -> di
     if body["resourceType"] == "OperationOutcome":
         raise FetchError("http", "FHIR server answered with an OperationOutcome")
     return body
+
+
+async def _read_capped(response: httpx.Response) -> bytes:
+    chunks: list[bytes] = []
+    size = 0
+    async for chunk in response.aiter_bytes():
+        size += len(chunk)
+        if size > MAX_PAGE_BYTES:
+            raise FetchError("invalid", f"FHIR response page larger than {MAX_PAGE_BYTES} bytes")
+        chunks.append(chunk)
+    return b"".join(chunks)
 
 
 async def fetch_query(

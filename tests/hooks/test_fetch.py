@@ -226,3 +226,46 @@ def test_no_authenticator_means_no_fetch(settings) -> None:  # type: ignore[no-u
 
     state = run(go())
     assert {"patient", "sodium"} <= set(state.unavailable)
+
+
+@pytest.mark.parametrize(
+    ("url", "same"),
+    [
+        (f"{FHIR_BASE}/Observation?page=2", True),
+        (FHIR_BASE, True),
+        ("https://FHIR.larkspur-valley.example.org/r4/Observation", True),
+        ("https://fhir.larkspur-valley.example.org/r4-shadow/Observation", False),
+        ("http://fhir.larkspur-valley.example.org/r4/Observation", False),
+        ("https://fhir.larkspur-valley.example.org:8443/r4/Observation", False),
+        ("https://fhir.larkspur-valley.example.org.evil.net/r4/Observation", False),
+    ],
+)
+def test_same_server_rule(url: str, same: bool) -> None:
+    from cds_service.hooks.fetch import _same_server
+
+    assert _same_server(url, FHIR_BASE) is same
+
+
+@respx.mock
+@pytest.mark.parametrize(
+    ("content", "kind"),
+    [
+        (b"<html>maintenance</html>", "invalid"),
+        (b'{"value": NaN}', "invalid"),
+        (b'["not", "a", "resource"]', "invalid"),
+        (b'{"resourceType": "OperationOutcome", "issue": []}', "http"),
+    ],
+)
+def test_unusable_answers_are_not_available(content: bytes, kind: str) -> None:
+    respx.get(f"{FHIR_BASE}/Patient/p").respond(200, content=content)
+    assert run(_fetch({"patient": "Patient/p"}))["patient"].kind == kind
+
+
+@respx.mock
+def test_oversized_page_is_refused(monkeypatch: pytest.MonkeyPatch) -> None:
+    import cds_service.hooks.fetch as fetch
+
+    monkeypatch.setattr(fetch, "MAX_PAGE_BYTES", 1000)
+    respx.get(f"{FHIR_BASE}/Observation").respond(200, json=searchset(sodium_series(*[130] * 20)))
+    result = run(_fetch({"sodium": "Observation?patient=p"}))["sodium"]
+    assert result.kind == "invalid" and "larger than 1000 bytes" in (result.error or "")
