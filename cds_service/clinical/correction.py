@@ -66,8 +66,11 @@ class CorrectionStatus:
         return self.exceeded_24h or self.exceeded_48h
 
 
-def max_rise(results: Iterable[LabResult], hours: float) -> Rise | None:
-    """Largest ``later - earlier`` over pairs at most ``hours`` apart (strictly later times).
+def max_rise(
+    results: Iterable[LabResult], hours: float, ending_after: datetime | None = None
+) -> Rise | None:
+    """Largest ``later - earlier`` over pairs at most ``hours`` apart (strictly later times),
+    counting only pairs whose later result is at or after ``ending_after`` when given.
 
     None when no two results at different times fall within the window.
     """
@@ -75,6 +78,8 @@ def max_rise(results: Iterable[LabResult], hours: float) -> Rise | None:
     window = timedelta(hours=hours)
     best: Rise | None = None
     for j, end in enumerate(ordered):
+        if ending_after is not None and end.time < ending_after:
+            continue
         for i in range(j - 1, -1, -1):
             start = ordered[i]
             if end.time - start.time > window:
@@ -125,15 +130,17 @@ def applicable_limits(ctx: ClinicalContext, th: Thresholds) -> CorrectionLimits:
 
 
 def surveil(ctx: ClinicalContext, th: Thresholds) -> CorrectionStatus | None:
-    """Window maxima over the current episode and what followed it; None without an episode."""
+    """Window maxima over the current episode and what followed it, for rises that ended
+    within the look-back (an old overcorrection is history); None without an episode."""
     episode = _episode(ctx, th)
     if episode is None:
         return None
     results = episode.surveillance
+    recent = ctx.now - timedelta(hours=th.correction_lookback_hours)
     return CorrectionStatus(
         limits=applicable_limits(ctx, th),
-        rise_24h=max_rise(results, 24),
-        rise_48h=max_rise(results, 48),
+        rise_24h=max_rise(results, 24, recent),
+        rise_48h=max_rise(results, 48, recent),
         latest=results[-1],
     )
 

@@ -76,6 +76,7 @@ class Thresholds:
     correction_limit_24h_high_risk: float
     correction_limit_48h_high_risk: float
     high_risk_sodium_at_most: float
+    correction_lookback_hours: float
     hypokalemia_below: float
     tbw_fraction_adult_male: float
     tbw_fraction_adult_female: float

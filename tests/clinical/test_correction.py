@@ -131,3 +131,12 @@ def test_48h_maximum_is_at_least_the_24h_maximum(data: list) -> None:  # type: i
     if r24 is not None:
         assert r48 is not None and r48.amount >= r24.amount
         assert timedelta(0) < r24.end.time - r24.start.time <= timedelta(hours=24)
+
+
+def test_old_overcorrection_is_history(th: Thresholds) -> None:
+    # Verbalis 2013 (from memory): demyelination shows 2-6 days after a rapid rise; a rise that
+    # ended more than 7 days ago (common practice look-back) no longer raises a card.
+    old = sodium_series([(24 * 9, 118), (24 * 8.5, 131), (24 * 3, 137), (2, 138)])
+    assert correction_finding(make_ctx(series={Analyte.SODIUM: old}), th) is None
+    recent = sodium_series([(24 * 6, 118), (24 * 5.5, 131), (2, 138)])
+    assert correction_finding(make_ctx(series={Analyte.SODIUM: recent}), th) is not None
