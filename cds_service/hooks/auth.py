@@ -184,7 +184,7 @@ class Authenticator:
         except jwt.PyJWTError:
             raise AuthError("malformed token") from None
         alg = header.get("alg")
-        if alg not in ALGORITHM_KEYS:
+        if not isinstance(alg, str) or alg not in ALGORITHM_KEYS:
             raise AuthError("algorithm not allowed")
         if str(header.get("typ", "")).upper() != "JWT":
             raise AuthError("token type is not JWT")

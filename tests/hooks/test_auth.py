@@ -4,14 +4,16 @@ worked example, then an attack matrix in which every forged or misused token is 
 from __future__ import annotations
 
 import json
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
 
 import httpx
 import jwt
 import pytest
 import respx
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
-from cds_service.hooks.auth import AuthError, Caller, _verify
+from cds_service.hooks.auth import Authenticator, AuthError, Caller, _verify
 from cds_service.store import Store
 from tests.fixtures.auth_kit import (
     ENDPOINT,
@@ -180,6 +182,10 @@ ATTACKS: dict[str, tuple[Forger, str]] = {
     "no iat": (lambda k: sign(k, claims(iat=None)), "missing claim: iat"),
     "no jti": (lambda k: sign(k, claims(jti=None)), "missing claim: jti"),
     "no kid": (lambda k: jwt.encode(claims(), k.private, algorithm="ES384"), "missing key id"),
+    "alg as a list": (
+        lambda k: forge({"alg": ["ES384"], "typ": "JWT", "kid": k.kid}, claims()),
+        "algorithm not allowed",
+    ),
     "not a JWT": (lambda k: "larkspur.not-a-token", "malformed token"),
     "typ not JWT": (lambda k: sign(k, claims(), typ="at+jwt"), "token type is not JWT"),
 }
@@ -363,3 +369,65 @@ def test_authenticator_rechecks_clients_it_is_given(tmp_path, sqlite_url) -> Non
     with pytest.raises(ValueError, match="jwks_file"):
         authenticator(config, store)
     store.close()
+
+
+json_values = st.recursive(
+    st.none() | st.booleans() | st.integers() | st.floats(allow_nan=False) | st.text(max_size=8),
+    lambda inner: (
+        st.lists(inner, max_size=3) | st.dictionaries(st.text(max_size=5), inner, max_size=3)
+    ),
+    max_leaves=8,
+)
+header_fields = st.fixed_dictionaries(
+    {},
+    optional={
+        "alg": st.sampled_from(["ES384", "none", "HS256"]) | json_values,
+        "typ": json_values,
+        "kid": json_values,
+        "jku": json_values,
+    },
+)
+
+
+def _far_from_now(value: object) -> bool:
+    return not (isinstance(value, int | float) and abs(value - NOW_S) < 10**6)
+
+
+claim_fields = st.fixed_dictionaries(
+    {
+        "iss": st.just(ISSUER) | json_values,
+        "aud": st.just(ENDPOINT) | json_values,
+        "exp": json_values.filter(_far_from_now),  # so no generated token can be valid
+    },
+    optional={name: json_values for name in ("iat", "jti", "tenant", "nbf")},
+)
+
+
+@pytest.fixture(scope="module")
+def fuzz_target(tmp_path_factory) -> Iterator[tuple[Authenticator, KeyPair]]:
+    folder = tmp_path_factory.mktemp("fuzz")
+    store = Store(f"sqlite:///{folder / 'fuzz.db'}")
+    key = new_key()
+    yield authenticator(settings_for(folder, key), store), key
+    store.close()
+
+
+@settings(max_examples=150, deadline=None)
+@given(header=header_fields, body=claim_fields, raw=st.text(max_size=60))
+def test_any_input_is_refused_with_auth_error_only(header, body, raw, fuzz_target) -> None:
+    """Property: whatever arrives in the Authorization header - even well signed claims of
+    any JSON type - the answer is an AuthError (a 401), never another exception (a 500).
+    Signed claims without a valid exp/iat/jti/aud can never pass."""
+    auth, key = fuzz_target
+    payload = json.dumps(body).encode()  # PyJWS signs any payload, without claim type checks
+    signed = jwt.PyJWS().encode(
+        payload, key.private, algorithm="ES384", headers={"kid": key.kid, "typ": "JWT"}
+    )
+    for value in (
+        raw,
+        f"Bearer {raw}",
+        f"Bearer {forge(header, body, b'sig')}",
+        f"Bearer {signed}",
+    ):
+        with pytest.raises(AuthError):
+            run(auth.authenticate(value, ENDPOINT))
