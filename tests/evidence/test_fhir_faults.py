@@ -27,8 +27,8 @@ from cds_service.hooks.registry import fill
 from tests.evidence._support import CASES, assert_clean, open_client, trial_settings
 
 FHIR_BASE = "https://fhir.larkspur.test/r4"
-BUDGET_SECONDS = 1.0
-HANG_GUARD_SECONDS = BUDGET_SECONDS + 20.0
+BUDGET_SECONDS = 3.0  # generous: the machine running the suite may be busy
+HANG_GUARD_SECONDS = BUDGET_SECONDS + 30.0
 REQUIRED = ("patient", "sodium")  # cds_service.hooks.registry.REQUIRED_KEYS
 
 REQUEST = rq.hook_request("patient-view", 40, prefetch=False, fhir_server=FHIR_BASE)
