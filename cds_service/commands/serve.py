@@ -81,12 +81,32 @@ def resolve(args: argparse.Namespace):  # type: ignore[no-untyped-def]
     return settings, host, port
 
 
+def preflight(settings) -> None:  # type: ignore[no-untyped-def]
+    """Open the store and check the auth clients before binding, so that a bad configuration
+    is a one-line message rather than a failed application start-up."""
+    from cds_service.hooks.auth import Authenticator
+    from cds_service.store import Store
+
+    try:
+        store = Store(settings.storage.url)
+    except Exception as exc:
+        detail = str(exc).splitlines()[0][:200] if str(exc) else ""
+        raise UserError(f"cannot open the store: {type(exc).__name__}: {detail}") from None
+    try:
+        Authenticator(settings, store, None)  # type: ignore[arg-type]
+    except ValueError as exc:
+        raise UserError(f"invalid configuration: {exc}") from None
+    finally:
+        store.close()
+
+
 def run(args: argparse.Namespace) -> int:
     import uvicorn
 
     from cds_service.app import create_app
 
     settings, host, port = resolve(args)
+    preflight(settings)
     try:
         from cds_service import logs
 

@@ -127,3 +127,17 @@ def test_serve_runs_warns_and_stops_gracefully(tmp_path: Path) -> None:
     assert proc.returncode in (0, 130), err
     assert "AUTHENTICATION IS OFF" in err
     assert "Traceback" not in err
+
+
+def test_bad_configuration_is_one_line_before_binding(tmp_path: Path, capsys) -> None:  # type: ignore[no-untyped-def]
+    config = tmp_path / "tonicity.toml"
+    config.write_text(
+        f'[storage]\nurl = "sqlite:///{tmp_path / "t.db"}"\n'
+        '[auth]\nrequired = true\n[[auth.clients]]\nissuer = "https://ehr.example.org"\n'
+    )
+    assert main(["serve", "--config", str(config)]) != 0
+    err = capsys.readouterr().err
+    assert "needs jwks_file" in err and len(err.strip().splitlines()) == 1
+    config.write_text('[storage]\nurl = "nonsense"\n')
+    assert main(["serve", "--config", str(config)]) != 0
+    assert "cannot open the store" in capsys.readouterr().err
