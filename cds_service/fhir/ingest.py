@@ -183,6 +183,11 @@ def build_context(
     meds: list[MedicationEntry] = []
     conds: list[ConditionEntry] = []
     patient_resource: dict[str, Any] | None = None
+    if patient_id is None:  # a Bundle of one patient's record: that patient is in context
+        patient_id = next(
+            (text(r.get("id")) for _, r in collected.resources if r["resourceType"] == "Patient"),
+            None,
+        )
     for key, res in collected.resources:
         kind = res["resourceType"]
         other = _other_patient(res, patient_id)
@@ -238,7 +243,9 @@ def _patient(
     if why:
         report.ignore(key, "patient", why)
         return chosen
-    report.add(key, "patient", True)
+    sex = patient.sex_of(res).value
+    born = text(res.get("birthDate")) or "birth date unknown"
+    report.add(key, f"patient: {sex}, born {born}", True)
     return res
 
 

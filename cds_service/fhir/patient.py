@@ -12,14 +12,17 @@ from cds_service.fhir.times import age_years, parse_birth_date
 _SEX = {"male": Sex.MALE, "female": Sex.FEMALE}
 
 
+def sex_of(resource: dict[str, Any]) -> Sex:
+    return _SEX.get((text(resource.get("gender")) or "").lower(), Sex.UNKNOWN)
+
+
 def facts(resource: dict[str, Any] | None, patient_id: str | None, now: datetime) -> PatientFacts:
     if resource is None:
         return PatientFacts(patient_id=patient_id, age_years=None, sex=Sex.UNKNOWN)
     birth = parse_birth_date(resource.get("birthDate"))
     age = age_years(birth, now) if birth is not None and birth <= now.date() else None
-    gender = (text(resource.get("gender")) or "").lower()
     return PatientFacts(
         patient_id=patient_id or text(resource.get("id")),
         age_years=age,  # never rounded: 17.997 must stay under 18
-        sex=_SEX.get(gender, Sex.UNKNOWN),
+        sex=sex_of(resource),
     )

@@ -6,7 +6,7 @@ from datetime import UTC, datetime
 
 import pytest
 
-from cds_service.clinical.context import Sex
+from cds_service.clinical.context import Analyte, Sex
 from tests.fhir.factory import ingest, patient
 
 
@@ -55,3 +55,18 @@ def test_birth_after_now_gives_no_age() -> None:
 
 def test_one_day_before_the_18th_birthday_is_under_18() -> None:
     assert ingest(patient("2008-12-01")).context.patient.age_years < 18
+
+
+def test_bundle_without_patient_id_takes_its_patient_and_drops_others() -> None:
+    from cds_service.config import IngestSettings
+    from cds_service.fhir import build_context
+    from tests.fhir.factory import NOW, observation
+
+    mine = observation("na", "2951-2", 127)
+    theirs = observation("na2", "2951-2", 141)
+    theirs["subject"] = {"reference": "Patient/lvh-9999"}
+    out = build_context([patient(), mine, theirs], now=NOW, settings=IngestSettings())
+    assert out.context.patient.patient_id == "lvh-4471"
+    assert [r.value for r in out.context.series[Analyte.SODIUM]] == [127]
+    (line,) = [x for x in out.report.lines if x.resource == "Patient/lvh-4471"]
+    assert line.understood_as == "patient: female, born 1951-03-14"
