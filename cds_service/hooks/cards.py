@@ -55,6 +55,11 @@ def _number(value: float | str) -> str:
     return str(value)
 
 
+def _label(name: str) -> str:
+    """``serum_sodium`` -> ``Serum sodium`` for the detail table."""
+    return name.replace("_", " ").capitalize()
+
+
 def _section(title: str, lines: Iterable[str]) -> list[str]:
     items = [line for line in lines if line]
     return [f"**{title}**", "", *(f"- {line}" for line in items), ""] if items else []
@@ -72,10 +77,14 @@ def _test_name(analyte: str) -> str:
 def render_detail(finding: Finding, now: datetime, unavailable: Iterable[str] = ()) -> str:
     """The card detail in markdown."""
     out: list[str] = [f"**{FINDING_DISPLAY[finding.code]}**", ""]
-    out += [*finding.details, ""] if finding.details else []
+    for paragraph in finding.details:  # one paragraph each (markdown joins adjacent lines)
+        out += [paragraph, ""]
     if finding.values:
         out += ["| Value | Result | Unit |", "|---|---|---|"]
-        out += [f"| {v.name} | {_number(v.value)} | {v.unit} |" for v in finding.values]
+        out += [
+            f"| {_label(v.name)} | {_number(v.value)} | {'' if v.unit == '1' else v.unit} |"
+            for v in finding.values
+        ]
         out.append("")
     inputs = []
     for i in finding.inputs:
