@@ -324,10 +324,7 @@ def _audit(
 
 
 def _include_routers(app: FastAPI) -> None:
+    from cds_service.web import create_router
+
     app.include_router(ops.router)
-    try:
-        from cds_service.web import create_router
-    except ImportError:
-        _log.warning("web workbench not available in this build")
-        return
     app.include_router(create_router())
