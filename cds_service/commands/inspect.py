@@ -47,10 +47,10 @@ def _now(text: str | None) -> datetime:
     return when if when.tzinfo else when.replace(tzinfo=UTC)
 
 
-def split_input(data: Any) -> tuple[list[Any], list[Any], str | None]:
-    """(resources, draft orders, patient id) from a request, Bundle, resource or list."""
+def split_input(data: Any) -> tuple[list[Any], list[Any], str | None, list[str]]:
+    """(resources, draft orders, patient id, selections) from a request, Bundle or list."""
     if isinstance(data, list):
-        return data, [], None
+        return data, [], None, []
     if not isinstance(data, dict):
         raise UserError("input is neither a FHIR resource nor a CDS Hooks request")
     if "hook" in data:
@@ -59,14 +59,16 @@ def split_input(data: Any) -> tuple[list[Any], list[Any], str | None]:
         resources = list(prefetch.values()) if isinstance(prefetch, dict) else []
         drafts = context.get("draftOrders")
         pid = context.get("patientId")
+        selections = context.get("selections")
         return (
             resources,
             [drafts] if drafts is not None else [],
             pid if isinstance(pid, str) else None,
+            [s for s in selections if isinstance(s, str)] if isinstance(selections, list) else [],
         )
     if "resourceType" not in data:
         raise UserError("input has no resourceType and no hook: not FHIR, not CDS Hooks")
-    return [data], [], None
+    return [data], [], None, []
 
 
 def _format_value(line: Any) -> str:
@@ -107,7 +109,7 @@ def run(args: argparse.Namespace) -> int:
     from cds_service.config import IngestSettings, load_settings
     from cds_service.fhir import build_context
 
-    resources, drafts, pid = split_input(_read(args.bundle))
+    resources, drafts, pid, selections = split_input(_read(args.bundle))
     settings = load_settings(args.config).ingest if args.config else IngestSettings()
     result = build_context(
         resources,
@@ -115,6 +117,7 @@ def run(args: argparse.Namespace) -> int:
         settings=settings,
         patient_id=args.patient or pid,
         draft_orders=drafts,
+        selections=selections,
     )
     if args.json:
         print(json.dumps(result.report.to_dict(), indent=2))

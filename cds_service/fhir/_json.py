@@ -4,7 +4,10 @@ from __future__ import annotations
 
 import math
 from collections.abc import Iterator
+from functools import cache, lru_cache
 from typing import Any
+
+from cds_service.fhir._data import load
 
 
 def obj(value: Any) -> dict[str, Any]:
@@ -34,13 +37,30 @@ def number(value: Any) -> float | None:
     return out if math.isfinite(out) else None
 
 
+@cache
+def _system_aliases() -> dict[str, str]:
+    return dict(load("systems")["aliases"])
+
+
+@lru_cache(maxsize=256)
+def system_uri(system: str) -> str:
+    """The canonical URI for a code system identifier (OID or URI variant, see systems.toml)."""
+    s = system.strip()
+    s = s[:-1] if s.endswith("/") else s
+    return _system_aliases().get(s, s)
+
+
 def codings(concept: Any) -> Iterator[tuple[str, str, str]]:
-    """(system, code, display) of every coding in a CodeableConcept (missing parts as "")."""
+    """(system, code, display) of every coding in a CodeableConcept (missing parts as "").
+
+    Systems come back canonical: "urn:oid:2.16.840.1.113883.6.1" reads as http://loinc.org.
+    """
     for coding in items(obj(concept).get("coding")):
         c = obj(coding)
         code = text(c.get("code"))
+        system = text(c.get("system"))
         yield (
-            text(c.get("system")) or "",
+            system_uri(system) if system else "",
             code.strip() if code else "",
             text(c.get("display")) or "",
         )

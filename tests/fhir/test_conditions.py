@@ -96,3 +96,11 @@ def test_entry_fields() -> None:
     (entry,) = ingest(_condition("c", "I50.9")).context.conditions
     assert entry.code == f"{ICD}|I50.9" and entry.source_id == "Condition/c"
     assert entry.display == "Heart failure, unspecified"
+
+
+def test_icd10cm_sent_as_hl7_oid_is_read() -> None:
+    # HL7 OID registry: 2.16.840.1.113883.6.90 is ICD-10-CM (from memory)
+    assert categorise("urn:oid:2.16.840.1.113883.6.90", "I50.9") is None  # raw system: no
+    cond = _condition("c", "I50.9")
+    cond["code"]["coding"][0]["system"] = "urn:oid:2.16.840.1.113883.6.90"
+    assert ingest(cond).context.has_condition(C.HEART_FAILURE)

@@ -55,7 +55,11 @@ def test_cds_hooks_request_uses_prefetch_and_draft_orders(
         "context": {
             "userId": "Practitioner/lvh-rn-12",
             "patientId": PATIENT_ID,
-            "draftOrders": bundle(med_request("iv1", "D5 1/2NS with 20 mEq/L KCl", status="draft")),
+            "draftOrders": bundle(
+                med_request("iv1", "D5 1/2NS with 20 mEq/L KCl", status="draft"),
+                med_request("iv2", "NS 1000 mL", status="draft"),
+            ),
+            "selections": ["MedicationRequest/iv1"],
         },
         "prefetch": {"patient": patient(), "sodium": bundle(observation("na", "2951-2", 126))},
     }
@@ -64,6 +68,8 @@ def test_cds_hooks_request_uses_prefetch_and_draft_orders(
     assert main(["inspect", str(path), "--now", "2026-11-30T12:00:00Z"]) == 0
     out = capsys.readouterr().out
     assert "draft IV fluid" in out and "Observation/na" in out and "Patient/lvh-4471" in out
+    iv1, iv2 = (line for line in out.splitlines() if line.startswith("MedicationRequest/iv"))
+    assert iv1.rstrip().endswith(" selected") and iv2.rstrip().endswith("not selected")
 
 
 @pytest.mark.parametrize(

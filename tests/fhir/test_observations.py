@@ -216,3 +216,10 @@ def test_one_bad_time_does_not_spoil_results_sharing_its_validation() -> None:
     second = observation("ok", "2951-2", 127, when="2026-11-30T09:00:00Z")
     res = ingest(first, second)
     assert [r.source_id for r in res.context.series[Analyte.SODIUM]] == ["Observation/ok"]
+
+
+def test_loinc_sent_as_hl7_oid_is_read() -> None:
+    # HL7 OID registry: 2.16.840.1.113883.6.1 is LOINC (from memory)
+    obs = observation("na", "2951-2", 127)
+    obs["code"]["coding"][0]["system"] = "urn:oid:2.16.840.1.113883.6.1"
+    assert ingest(obs).context.current[Analyte.SODIUM].value == 127
