@@ -138,13 +138,6 @@ def make_findings() -> list[Finding]:
     ]
 
 
-@pytest.fixture
-def store(tmp_path: Path) -> Store:
-    s = Store(f"sqlite:///{tmp_path / 'web.db'}")
-    yield s
-    s.close()
-
-
 SAMPLE_REQUEST = {
     "hook": "patient-view",
     "hookInstance": "d1577c69-dfbe-44ad-ba6d-3e05e953b2ea",
