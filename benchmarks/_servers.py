@@ -22,10 +22,19 @@ ROOT = Path(__file__).resolve().parent.parent
 CLK_TCK = os.sysconf("SC_CLK_TCK")
 
 
+_HANDED_OUT: set[int] = set()
+
+
 def free_port() -> int:
-    with socket.socket(socket.AF_INET, socket.SOCK_STREAM) as s:
-        s.bind(("127.0.0.1", 0))
-        return int(s.getsockname()[1])
+    """A loopback port nobody listens on, never the same one twice in this process (the
+    kernel may hand a just-closed port out again, and two servers would then race for it)."""
+    while True:
+        with socket.socket(socket.AF_INET, socket.SOCK_STREAM) as s:
+            s.bind(("127.0.0.1", 0))
+            port = int(s.getsockname()[1])
+        if port not in _HANDED_OUT:
+            _HANDED_OUT.add(port)
+            return port
 
 
 def write_config(
@@ -123,6 +132,9 @@ class Server:
             try:
                 r = httpx.get(self.base_url + self.probe, timeout=2.0)
                 if r.status_code < 500:
+                    time.sleep(0.3)  # a second process that lost the port race exits now
+                    if self.proc.poll() is not None:
+                        raise RuntimeError(f"{self.name} exited at start:\n{self.log_tail()}")
                     return self
             except httpx.HTTPError:
                 pass

@@ -241,7 +241,10 @@ def main(argv: list[str] | None = None) -> int:
                 "observations": rq.count_observations(body),
             }
         for workers in args.workers:
-            _run_workers(workers, folder, bodies, args, results)
+            try:
+                _run_workers(workers, folder, bodies, args, results)
+            except RuntimeError as exc:  # a server that would not start: say so, keep the rest
+                results.setdefault("failures", []).append(f"{workers} worker(s): {exc}")
     results["goals"] = _goals(results)
     text = json.dumps(results, indent=1)
     if args.out:
@@ -266,6 +269,7 @@ def _run_workers(
         sport,
         folder,
         env={"TONICITY_BENCH_CONFIG": str(config)},
+        probe="/readyz",
     )
     baseline = _servers.Server(
         f"baseline-{workers}w",
