@@ -318,3 +318,27 @@ def test_fhir_access_token_never_reaches_logs_or_response(client: TestClient, ca
     assert token not in response.text
     logged = caplog.text + json.dumps([getattr(r, "fields", {}) for r in caplog.records])
     assert token not in logged
+
+
+def test_card_log_and_feedback_on_each_database(store_url: str, settings) -> None:  # type: ignore[no-untyped-def]
+    """The same hook call and feedback on SQLite and, when CI provides it, PostgreSQL."""
+    from cds_service.app import create_app
+
+    on_db = settings.model_copy(
+        update={"storage": settings.storage.model_copy(update={"url": store_url})}
+    )
+    with TestClient(create_app(on_db)) as c:
+        result = c.post(WORKUP, json=hook_request(observations=sodium_series(121))).json()
+        uuids = [card["uuid"] for card in result["cards"]]
+        stamp = NOW.isoformat()
+        feedback = {
+            "feedback": [
+                {"card": u, "outcome": "accepted", "outcomeTimestamp": stamp} for u in uuids
+            ]
+        }
+        assert c.post(f"{WORKUP}/feedback", json=feedback).status_code == 200
+        with c.app.state.store.session() as s:
+            logged = {r.card_uuid for r in s.scalars(select(CardLog))}
+            fed = {(r.card_uuid, r.unknown_card) for r in s.scalars(select(Feedback))}
+    assert uuids and logged == set(uuids)
+    assert fed == {(u, False) for u in uuids}
