@@ -29,7 +29,7 @@ _QUARTER = re.compile(r"(?:\b1/4|\bquarter|\bone[- ]quarter)[- ]?(?:normal salin
 _NORMAL = re.compile(r"\bnormal saline\b|\bns\b|\bd\d+ns\b|\bisotonic saline\b")
 _WATER = re.compile(r"\bd\d+w\b|\bin water\b|\bdextrose \d+(?:\.\d+)?% water\b")
 _DEX = (
-    re.compile(r"\bd(5|10|20|50|70)(?=w\b|ns\b|\b)"),
+    re.compile(r"\bd(5|10|20|50|70)(?=w\b|ns\b|lr\b|\b)"),
     re.compile(_NUM + r"\s*%\s*(?:dextrose|glucose)"),
     re.compile(r"(?:dextrose|glucose)\s*(?:injection\s*|solution\s*)?" + _NUM + r"\s*%"),
 )
@@ -40,7 +40,10 @@ _KCL = (
     ),
     re.compile(r"(?:kcl|potassium chloride)\s*" + _NUM + r"\s*(?:meq|mmol)"),
 )
-_LR = re.compile(r"lactated ringer|ringer'?s? lactate|hartmann|\blr\b")
+_LR = re.compile(r"lactated ringer|ringer'?s? lactate|hartmann|\blr\b|\bd\d+\s?lr\b")
+# "hypertonic saline" with no strength: read as 3 %, the usual strength (common practice), so
+# the order is still checked as hypertonic rather than passed over as an unknown drug.
+_HYPERTONIC = re.compile(r"\bhypertonic (?:saline|sodium chloride|nacl)\b")
 _PLASMALYTE = re.compile(r"plasma-?\s?lyte|plasmalyte")
 _VOLUME = re.compile(_NUM + r"\s*(ml|l)\b(?!\s*/)")
 _RATE = re.compile(_NUM + r"\s*ml\s*/\s*(?:h|hr|hour)\b")
@@ -85,7 +88,9 @@ def parse_text(label: str) -> Composition:
         named = "plasmalyte_148"
     nacl = _first(_NACL_PCT, t)
     if nacl is None and named is None:
-        if _QUARTER.search(t):
+        if _HYPERTONIC.search(t):
+            nacl = 3.0
+        elif _QUARTER.search(t):
             nacl = 0.225
         elif _HALF.search(t):
             nacl = 0.45

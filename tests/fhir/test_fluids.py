@@ -24,6 +24,9 @@ from tests.fhir.factory import PATIENT_ID, ingest, med_request
         ("Lactated Ringer's 1000 mL", None, None, None, "lactated_ringers"),
         ("Plasma-Lyte 148", None, None, None, "plasmalyte_148"),
         ("1/4 NS", 0.225, None, None, None),
+        ("Hypertonic saline 150 mL", 3.0, None, None, None),
+        ("Sodium chloride 23.4% injection", 23.4, None, None, None),
+        ("D5LR 1000 mL", None, 5.0, None, "lactated_ringers"),
     ],
 )
 def test_composition_from_text(label: str, nacl, dextrose, kcl, named) -> None:
