@@ -20,6 +20,7 @@ from sqlalchemy.orm import Session
 
 from cds_service.clinical.context import Analyte, ClinicalContext, LabResult
 from cds_service.clinical.correction import applicable_limits, episode_start
+from cds_service.clinical.drugs import match_medication
 from cds_service.clinical.findings import FINDING_DISPLAY, Finding
 from cds_service.clinical.thresholds import Thresholds
 from cds_service.store import Store
@@ -93,14 +94,15 @@ def _start_value(ctx: ClinicalContext, start: datetime | None) -> float | None:
 
 
 def _starts(ctx: ClinicalContext, findings: list[Finding]) -> list[dict[str, Any]]:
-    """Medication starts (flagged when a finding relied on them) and drafts at ``now``."""
+    """Medication starts and drafts (at ``now``); ``associated`` when a finding relied on the
+    medication or the clinical drug classes know it as sodium-relevant."""
     cited = {i.source_id for f in findings for i in f.inputs if i.source_id}
     out: list[dict[str, Any]] = [
         {
             "label": m.display,
             "time": _iso(m.start),
             "kind": "medication",
-            "associated": m.source_id in cited,
+            "associated": m.source_id in cited or bool(match_medication(m)),
         }
         for m in ctx.medications
         if m.start is not None

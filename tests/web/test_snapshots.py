@@ -148,3 +148,11 @@ def test_band_starts_at_the_episode_start(store: Store) -> None:
     assert limits["start_value"] == min(v for _, v, _, _ in SODIUM)
     assert limits["episode_start"] == _payload()["sodium"][0]["time"]
     assert 0 < limits["limit_24h"] <= limits["limit_48h"]
+
+
+def test_known_associated_drug_is_flagged_without_a_citing_finding() -> None:
+    """Hydrochlorothiazide is a thiazide, a classic cause of hyponatremia (Spasovski 2014,
+    Eur J Endocrinol, from memory): drug_classes.toml knows it even when no finding cites it."""
+    payload = snapshot_payload(make_context(), [], load_thresholds())
+    flags = {s["label"]: s["associated"] for s in payload["starts"]}
+    assert flags["Hydrochlorothiazide 25 mg tablet"] is True
