@@ -9,7 +9,7 @@ gets a report line saying what it was understood as, and used or ignored and why
 from __future__ import annotations
 
 from collections.abc import Collection, Iterable
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from datetime import UTC, datetime, timedelta
 from typing import Any
 
@@ -180,49 +180,67 @@ def build_context(
     report = ReportBuilder()
     collected = collect(resources, report)
     reader = ObservationReader(now, report, lambda a: timeline.lookback(a, settings))
-    meds: list[MedicationEntry] = []
-    conds: list[ConditionEntry] = []
-    patient_resource: dict[str, Any] | None = None
     if patient_id is None:  # a Bundle of one patient's record: that patient is in context
         patient_id = next(
             (text(r.get("id")) for _, r in collected.resources if r["resourceType"] == "Patient"),
             None,
         )
+    record = _Record(now, settings, patient_id, collected, report, reader)
     for key, res in collected.resources:
-        kind = res["resourceType"]
-        other = _other_patient(res, patient_id)
-        if other:
-            report.ignore(key, kind, f"belongs to another patient ({other})")
-            continue
-        if kind == "Observation":
-            reader.read(res, key)
-        elif kind in MEDICATION_STATUSES:
-            entry = _medication(res, key, kind, collected, now, settings, report)
-            if entry is not None:
-                meds.append(entry)
-        elif kind == "Condition":
-            conds.extend(_condition(res, key, report))
-        elif kind == "Patient":
-            patient_resource = _patient(res, key, patient_id, patient_resource, report)
-        elif kind == "Medication":
-            report.add(key, "medication definition", True, "read through references")
-        else:
-            report.ignore(key, kind, "resource type not read by Tonicity")
+        try:
+            record.read(key, res)
+        except Exception as exc:  # a reader bug must cost one resource, never the request
+            report.ignore(key, res["resourceType"], f"could not be read ({type(exc).__name__})")
     report_duplicates(collected, report)
     drafts = _drafts(draft_orders, collected, selections, report)
     series = timeline.build_series(reader.results)
     ctx = ClinicalContext(
         now=now,
-        patient=patient.facts(patient_resource, patient_id, now),
+        patient=patient.facts(record.patient, patient_id, now),
         series=series,
         current=timeline.choose_current(series, now, settings),
         rejected=tuple(reader.rejected),
-        medications=tuple(meds),
-        conditions=tuple(_unique_conditions(conds)),
+        medications=tuple(record.meds),
+        conditions=tuple(_unique_conditions(record.conds)),
         draft_fluids=tuple(d for d in drafts if isinstance(d, DraftFluid)),
         draft_medications=tuple(d for d in drafts if isinstance(d, DraftMedication)),
     )
     return Ingested(ctx, report.build())
+
+
+@dataclass
+class _Record:
+    """One patient's record being read: the collections build_context fills."""
+
+    now: datetime
+    settings: IngestSettings
+    patient_id: str | None
+    collected: Collected
+    report: ReportBuilder
+    reader: ObservationReader
+    meds: list[MedicationEntry] = field(default_factory=list)
+    conds: list[ConditionEntry] = field(default_factory=list)
+    patient: dict[str, Any] | None = None
+
+    def read(self, key: str, res: dict[str, Any]) -> None:
+        kind, report = res["resourceType"], self.report
+        other = _other_patient(res, self.patient_id)
+        if other:
+            report.ignore(key, kind, f"belongs to another patient ({other})")
+        elif kind == "Observation":
+            self.reader.read(res, key)
+        elif kind in MEDICATION_STATUSES:
+            entry = _medication(res, key, kind, self.collected, self.now, self.settings, report)
+            if entry is not None:
+                self.meds.append(entry)
+        elif kind == "Condition":
+            self.conds.extend(_condition(res, key, report))
+        elif kind == "Patient":
+            self.patient = _patient(res, key, self.patient_id, self.patient, report)
+        elif kind == "Medication":
+            report.add(key, "medication definition", True, "read through references")
+        else:
+            report.ignore(key, kind, "resource type not read by Tonicity")
 
 
 def _patient(

@@ -26,13 +26,6 @@ def mapped_entries(concept: Any) -> list[loinc.LoincEntry]:
     ]
 
 
-def is_relevant(resource: dict[str, Any]) -> bool:
-    """Cheap pre-filter before validation: a mapped LOINC code on the code or a component."""
-    if mapped_entries(resource.get("code")):
-        return True
-    return any(mapped_entries(obj(c).get("code")) for c in items(resource.get("component")))
-
-
 def effective_time(resource: dict[str, Any]) -> datetime | None:
     """effectiveDateTime, effectivePeriod (end, else start), effectiveInstant, else issued."""
     for key in ("effectiveDateTime", "effectiveInstant"):
@@ -218,7 +211,7 @@ class ObservationReader:
             reason if recent else reason + " (older than the lookback, not reported)",
             analyte=analyte.value,
             value=value,
-            unit=CANONICAL_UNITS[analyte] if value else None,
+            unit=CANONICAL_UNITS[analyte] if value is not None else None,
             raw=raw,
             time=when,
         )

@@ -120,3 +120,17 @@ def test_five_thousand_observations_are_read_without_error() -> None:
     series = res.context.series[Analyte.SODIUM]
     used = sum(1 for line in res.report.lines if line.used)
     assert len(series) == used > 0
+
+
+def test_a_reader_failure_costs_one_resource_not_the_request(monkeypatch) -> None:
+    from cds_service.fhir import conditions
+
+    def broken(*_args: object) -> list:
+        raise RuntimeError("simulated reader bug")
+
+    monkeypatch.setattr(conditions, "match", broken)
+    cond = {"resourceType": "Condition", "id": "c1", "code": {"text": "x"}}
+    res = ingest(cond, observation("na", "2951-2", 127))
+    assert res.context.current[Analyte.SODIUM].value == 127
+    (line,) = [x for x in res.report.lines if x.resource == "Condition/c1"]
+    assert line.reason == "could not be read (RuntimeError)" and not line.used
