@@ -74,6 +74,7 @@ def driver(tmp_path_factory: pytest.TempPathFactory) -> Iterator[object]:
 
     options = webdriver.ChromeOptions()
     options.binary_location = str(CHROMIUM)
+    options.set_capability("goog:loggingPrefs", {"browser": "ALL"})
     profile = tmp_path_factory.mktemp("chromium-profile")
     for arg in (
         "--headless=new",
@@ -130,3 +131,6 @@ def test_workbench_runs_a_sample_and_shows_its_cards(base_url: str, driver) -> N
     assert points
     assert driver.find_elements(By.CSS_SELECTOR, "svg.trend-chart #limit-band")
     driver.save_screenshot(str(ARTIFACTS / "trend.png"))
+    # No script error and no Content-Security-Policy refusal on either page.
+    severe = [e["message"] for e in driver.get_log("browser") if e["level"] == "SEVERE"]
+    assert not severe, severe
