@@ -280,7 +280,13 @@ def _drafts(
         if res.get("resourceType") == "Medication":
             continue
         selected = not wanted or key in wanted
-        draft = _draft(res, key, draft_set, selected, report)
+        try:
+            draft = _draft(res, key, draft_set, selected, report)
+        except Exception as exc:  # as for the record: one order lost, never the request
+            report.ignore(
+                key, f"draft {res['resourceType']}", f"could not be read ({type(exc).__name__})"
+            )
+            continue
         if draft is not None:
             out.append(draft)
     report_duplicates(draft_set, report)
