@@ -162,7 +162,8 @@
     if (!response.ok) {
       const why = parsed && parsed.issue ? parsed.issue.map((i) => i.diagnostics).join("; ") : "";
       setStatus(`The service answered ${response.status}. ${why}`, true);
-      showCards([]);
+      $("cards").replaceChildren(el("p", { class: "status error", role: "alert",
+        text: `No cards: the call failed with HTTP ${response.status}. ${why}` }));
       return;
     }
     const cards = (parsed && parsed.cards) || [];
