@@ -121,7 +121,7 @@ def parse_call(body: object, service_id: str | None = None) -> HookCall:
         )
     ctx = request.context
     for key in service.required_context:
-        if ctx.get(key) in (None, "", [], {}) and not (key == "selections" and key in ctx):
+        if ctx.get(key) in (None, "", [], {}):
             raise HookError(400, f"context.{key} is required for the {service.hook} hook")
     patient_id = ctx.get("patientId")
     if not isinstance(patient_id, str) or not FHIR_ID.fullmatch(patient_id):

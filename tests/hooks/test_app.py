@@ -204,6 +204,9 @@ def test_order_hooks_need_draft_orders_and_known_selections(client: TestClient) 
     body["context"]["selections"] = ["MedicationRequest/not-drafted"]
     response = client.post("/cds-services/sodium-order-select", json=body)
     assert response.status_code == 400 and "selections" in _outcome(response)
+    body["context"]["selections"] = []  # order-select: at least the order just selected
+    response = client.post("/cds-services/sodium-order-select", json=body)
+    assert response.status_code == 400 and "selections" in _outcome(response)
     body["context"].pop("draftOrders")
     response = client.post("/cds-services/sodium-order-select", json=body)
     assert response.status_code == 400 and "draftOrders" in _outcome(response)
