@@ -28,3 +28,44 @@ def test_condition_sets_cover_every_category_with_codes_and_source() -> None:
 def test_rxnorm_names_are_lowercase_generics() -> None:
     for code, name in load("medications")["rxnorm_ingredients"].items():
         assert code.isdigit() and name == name.lower() and name.strip() == name
+
+
+def _verhoeff_valid(number: str) -> bool:
+    """Verhoeff check (SNOMED CT Technical Implementation Guide: the last digit of every SCTID
+    is a Verhoeff check digit). Tables built from the dihedral group D5 and the permutation
+    (1 5 7 6 2 8 3 0 9 4), as in Verhoeff (1969)."""
+
+    def d(j: int, k: int) -> int:  # multiplication in D5, elements 0-4 rotations, 5-9 flips
+        if j < 5 and k < 5:
+            return (j + k) % 5
+        if j < 5:
+            return 5 + (j + k - 5) % 5
+        if k < 5:
+            return 5 + (j - 5 - k) % 5
+        return (j - k) % 5
+
+    p = [list(range(10)), [1, 5, 7, 6, 2, 8, 3, 0, 9, 4]]
+    for i in range(2, 8):
+        p.append([p[i - 1][p[1][j]] for j in range(10)])
+    c = 0
+    for i, ch in enumerate(reversed(number)):
+        c = d(c, p[i % 8][int(ch)])
+    return c == 0
+
+
+def test_verhoeff_rule_on_published_examples() -> None:
+    # Verhoeff worked example (236 -> check digit 3) and SCTIDs from HL7 US Core examples
+    assert _verhoeff_valid("2363") and not _verhoeff_valid("2364")
+    assert _verhoeff_valid("38341003")  # hypertensive disorder
+    assert _verhoeff_valid("44054006")  # type 2 diabetes mellitus
+    assert not _verhoeff_valid("38341004")
+
+
+def test_every_snomed_id_has_a_valid_check_digit() -> None:
+    bad = [
+        (category, code)
+        for category, entry in load("conditions").items()
+        for code in entry["snomed"]
+        if not _verhoeff_valid(code)
+    ]
+    assert bad == []
