@@ -23,6 +23,7 @@ from typing import Any
 import httpx
 from fastapi import FastAPI, Request
 from fastapi.exceptions import RequestValidationError
+from fastapi.middleware.cors import CORSMiddleware
 from fastapi.responses import JSONResponse
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
@@ -171,6 +172,17 @@ def create_app(settings: Settings) -> FastAPI:
         lifespan=lifespan,
     )
     app.state.settings = settings
+    # CDS Hooks 2.0 (Security and Safety, CORS): browser-based CDS clients need CORS. Any
+    # origin may ask, without credentials: calls authenticate with a bearer JWT the client
+    # attaches itself, never with cookies, so a foreign page gains nothing by being allowed.
+    app.add_middleware(
+        CORSMiddleware,
+        allow_origins=["*"],
+        allow_methods=["GET", "POST", "OPTIONS"],
+        allow_headers=["Authorization", "Content-Type", "X-Request-ID"],
+        expose_headers=["X-Request-ID", LOCAL_TRIAL_HEADER],
+        max_age=600,
+    )
     app.add_middleware(_ResponseHeaders, local_trial=_local_trial(settings))
     _install_error_handlers(app)
     _install_routes(app, settings)

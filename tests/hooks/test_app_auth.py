@@ -139,3 +139,22 @@ def test_replayed_token_is_refused(secure: TestClient, private_pem: str) -> None
     headers = _bearer(private_pem, "/cds-services")
     assert secure.get("/cds-services", headers=headers).status_code == 200
     assert secure.get("/cds-services", headers=headers).status_code == 401
+
+
+def test_cors_preflight_needs_no_token_and_allows_the_bearer_header(secure: TestClient) -> None:
+    """CDS Hooks 2.0, Security and Safety: browser-based CDS clients require CORS (W3C Fetch
+    standard, CORS protocol: a preflight OPTIONS carries no credentials)."""
+    origin = "https://sandbox.larkspur-valley.example.org"
+    response = secure.options(
+        "/cds-services/sodium-workup",
+        headers={
+            "Origin": origin,
+            "Access-Control-Request-Method": "POST",
+            "Access-Control-Request-Headers": "authorization, content-type",
+        },
+    )
+    assert response.status_code == 200
+    assert "authorization" in response.headers["access-control-allow-headers"].lower()
+    refused = secure.get("/cds-services", headers={"Origin": origin})
+    assert refused.status_code == 401  # CORS opens the door to the browser, not to the service
+    assert refused.headers["access-control-allow-origin"] == "*"
