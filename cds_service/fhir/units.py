@@ -95,21 +95,26 @@ def parse_ucum(code: str) -> Any | None:
 
 @lru_cache(maxsize=1024)
 def resolve(unit: str | None, code: str | None, system: str | None) -> str:
-    """The UCUM code for a Quantity's (unit, code, system); UnitProblem when none fits."""
+    """The UCUM code for a Quantity's (unit, code, system); UnitProblem when none fits.
+
+    The code is tried first (alias table, then as UCUM when its system is UCUM or absent: a
+    local code system's "MG" is not UCUM's milligram by right), then the unit text.
+    """
     aliases: dict[str, str] = load("units")["aliases"]
-    candidates: list[str] = []
+    ucum_code = system is None or system.strip().rstrip("/") == UCUM_SYSTEM
+    candidates: list[tuple[str, bool]] = []
     if code and code.strip():
-        candidates.append(code)
+        candidates.append((code.strip(), ucum_code))
     if unit and unit.strip():
-        candidates.append(unit)
+        candidates.append((unit.strip(), True))
     if not candidates:
         raise UnitProblem("no unit given")
-    for text in candidates:
+    for text, may_be_ucum in candidates:
         alias = aliases.get(_key(text))
         if alias is not None:
             return alias
-        if parse_ucum(text.strip()) is not None:
-            return text.strip()
+        if may_be_ucum and parse_ucum(text) is not None:
+            return text
     shown = unit if unit else code
     raise UnitProblem(f"unit '{shown}' is not recognised")
 

@@ -15,6 +15,7 @@ from cds_service.fhir._data import load
 
 REF = pint.UnitRegistry()  # pint's default definitions, independent of ucumvert's UCUM table
 Q = REF.Quantity
+UCUM = "http://unitsofmeasure.org"
 
 
 def mass_from_molar(value: float, unit: str, molar_mass: float, target: str) -> float:
@@ -171,3 +172,12 @@ def test_strength_ratio_concentration() -> None:
     assert pct == pytest.approx(0.9, abs=0.001)
     assert units.concentration((0.9, "g"), (100, "mL"), "g/dL") == pytest.approx(0.9)
     assert units.concentration((1, "g"), (0, "mL"), "g/dL") is None
+
+
+def test_local_code_system_units_are_not_read_as_ucum() -> None:
+    # "Pa" is UCUM's pascal; from a local code system it means nothing to us, so the unit
+    # text decides (here: missing), rather than a wrong dimension being guessed.
+    with pytest.raises(units.UnitProblem):
+        units.resolve(None, "Pa", "http://larkspur.example.org/units")
+    assert units.resolve("mg/dL", "Pa", "http://larkspur.example.org/units") == "mg/dL"
+    assert units.resolve(None, "mg/dL", UCUM) == "mg/dL"
