@@ -68,6 +68,8 @@ def build_body(args: argparse.Namespace) -> dict[str, Any]:
     if not isinstance(data, dict):
         raise UserError(f"{args.path} is neither a CDS Hooks request nor a FHIR Bundle")
     if "hook" in data:
+        if args.draft_orders:
+            raise UserError("--draft-orders applies to a Bundle; a request carries its own")
         if args.hook and args.hook != data["hook"]:
             raise UserError(f"--hook {args.hook} differs from the request's hook {data['hook']!r}")
         return data

@@ -120,6 +120,8 @@ def test_order_sign_with_draft_orders_all_selected(tmp_path, capsys, as_list: bo
         ({"in.json": _bundle(patient())}, ["--hook", "order-sign"], "needs --draft-orders"),
         ({"in.json": {"hook": "patient-view", "hookInstance": "x", "context": {}}}, [], "400"),
         ({"in.json": hook_request(with_prefetch=False)}, [], "412"),
+        ({"in.json": hook_request()}, ["--hook", "order-sign"], "differs"),
+        ({"in.json": hook_request(), "d.json": []}, ["--draft-orders", "d.json"], "applies"),
     ],
 )
 def test_bad_input_is_one_line_and_nonzero(  # type: ignore[no-untyped-def]
@@ -127,6 +129,7 @@ def test_bad_input_is_one_line_and_nonzero(  # type: ignore[no-untyped-def]
 ) -> None:
     for name, data in files.items():
         (tmp_path / name).write_text(data if isinstance(data, str) else json.dumps(data))
+    extra = [str(tmp_path / a) if a.endswith(".json") else a for a in extra]
     code = main(["evaluate", str(tmp_path / "in.json"), *extra])
     out, err = capsys.readouterr()
     assert code != 0 and out == ""
