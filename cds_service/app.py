@@ -250,8 +250,9 @@ def _install_routes(app: FastAPI, settings: Settings) -> None:
         started = time.perf_counter()
         status = 500
         outcome = None
-        caller = await _authenticate(request, settings)
+        caller = None
         try:
+            caller = await _authenticate(request, settings)
             if service_id not in SERVICES:
                 raise HookError(404, f"no CDS service with id {service_id!r}")
             body = await read_json(request, settings.server.max_body_bytes)
@@ -274,6 +275,9 @@ def _install_routes(app: FastAPI, settings: Settings) -> None:
             raise
         except BodyTooLarge:
             status = 413
+            raise
+        except _Unauthorized:
+            status = 401
             raise
         finally:
             seconds = time.perf_counter() - started

@@ -345,3 +345,21 @@ def test_card_log_and_feedback_on_each_database(store_url: str, settings) -> Non
             fed = {(r.card_uuid, r.unknown_card) for r in s.scalars(select(Feedback))}
     assert uuids and logged == set(uuids)
     assert fed == {(u, False) for u in uuids}
+
+
+def test_framework_validation_errors_are_400_not_422(settings) -> None:  # type: ignore[no-untyped-def]
+    """FastAPI answers parameter validation with 422; this service answers 400 with an
+    OperationOutcome like every other caller error (CDS Hooks 2.0 leaves error bodies to the
+    service; FHIR R4 OperationOutcome is the standard carrier)."""
+    from cds_service.app import create_app
+
+    app = create_app(settings)
+
+    @app.get("/probe-typed")
+    async def probe(n: int) -> dict[str, int]:
+        return {"n": n}
+
+    with TestClient(app) as c:
+        response = c.get("/probe-typed", params={"n": "not-a-number"})
+    assert response.status_code == 400
+    assert "n" in _outcome(response)

@@ -10,6 +10,7 @@ in ``fhirAuthorization`` and is what the service uses against ``fhirServer``. RF
 from __future__ import annotations
 
 import json
+import logging
 from collections.abc import Iterator
 from pathlib import Path
 
@@ -89,10 +90,17 @@ def test_every_route_refuses_a_missing_token(secure: TestClient) -> None:
         assert LOCAL_TRIAL_HEADER not in response.headers
 
 
-def test_token_for_another_endpoint_is_refused(secure: TestClient, private_pem: str) -> None:
+def test_token_for_another_endpoint_is_refused_and_audited(
+    secure: TestClient, private_pem: str, caplog: pytest.LogCaptureFixture
+) -> None:
+    caplog.set_level(logging.INFO)
     headers = _bearer(private_pem, "/cds-services/sodium-order-sign")
     response = secure.post("/cds-services/sodium-workup", json=hook_request(), headers=headers)
     assert response.status_code == 401
+    audit = [r.fields for r in caplog.records if r.name == "tonicity.audit"]  # type: ignore[attr-defined]
+    assert [(a["service"], a["status"], a["client"]) for a in audit] == [
+        ("sodium-workup", 401, "anonymous")
+    ]
 
 
 def test_discovery_with_a_valid_token(secure: TestClient, private_pem: str) -> None:
