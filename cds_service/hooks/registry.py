@@ -12,7 +12,7 @@ from dataclasses import dataclass
 from functools import cache
 
 from cds_service.clinical.context import Analyte
-from cds_service.hooks.models import ServiceDescription
+from cds_service.hooks.models import ServiceDescription, prune
 
 PATIENT = "{{context.patientId}}"
 LOINC_SYSTEM = "http://loinc.org"
@@ -103,9 +103,13 @@ def _code_tokens(*analytes: Analyte) -> str:
     return ",".join(f"{LOINC_SYSTEM}|{code}" for code in codes_for(*analytes))
 
 
-@cache
 def prefetch_templates() -> dict[str, str]:
-    """The prefetch templates shared by the three services (key -> FHIR query)."""
+    """The prefetch templates shared by the three services (key -> FHIR query); a copy."""
+    return dict(_templates())
+
+
+@cache
+def _templates() -> dict[str, str]:
     return {
         "patient": f"Patient/{PATIENT}",
         "sodium": (
@@ -124,8 +128,6 @@ def prefetch_templates() -> dict[str, str]:
 
 def discovery() -> dict[str, object]:
     """The body of ``GET /cds-services``."""
-    from cds_service.hooks.models import prune
-
     return {
         "services": [prune(s.describe().model_dump(exclude_none=True)) for s in SERVICES.values()]
     }
