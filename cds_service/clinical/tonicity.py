@@ -98,7 +98,7 @@ class _Part:
 
 def _unknown(c: Chemistry, head: str) -> _Part:
     calc = c.calculated_osmolality
-    provisional = f"; calculated {num(calc, 0)} mOsm/kg is provisional" if calc else ""
+    provisional = f"; calculated {num(calc)} mOsm/kg is provisional" if calc else ""
     return _Part(
         FindingCode.TONICITY_UNKNOWN,
         f"{head}, no measured osmolality{provisional}",
@@ -233,8 +233,8 @@ def osmolal_gap_finding(c: Chemistry) -> Finding | None:
     return Finding(
         code=FindingCode.OSMOLAL_GAP,
         urgency=Urgency.INFO,
-        summary=(f"Osmolal gap {num(gap, 0)} mOsm/kg (measured {num(measured, 0)}, calculated "
-                 f"{num(calc, 0)}): unmeasured osmoles present"),
+        summary=(f"Osmolal gap {num(gap)} mOsm/kg (measured {num(measured)}, calculated "
+                 f"{num(calc)}): unmeasured osmoles present"),
         details=(
             f"A gap above {num(c.th.osmolal_gap_elevated_above)} mOsm/kg points to "
             "unmeasured osmoles or a falsely low sodium:",

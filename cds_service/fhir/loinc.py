@@ -19,6 +19,7 @@ class LoincEntry:
     specimen: str
     direct_ise: bool = False
     primary: bool = False
+    short: str = ""  # plain name for an order button (primary entries)
     source: str = ""
 
     def __post_init__(self) -> None:
@@ -39,6 +40,7 @@ def entries() -> tuple[LoincEntry, ...]:
                 specimen=str(raw["specimen"]),
                 direct_ise=bool(raw.get("direct_ise", False)),
                 primary=bool(raw.get("primary", False)),
+                short=str(raw.get("short", "")),
                 source=str(raw.get("source", "")),
             )
         )
@@ -64,6 +66,14 @@ def codes_for(*analytes: Analyte) -> list[str]:
     """LOINC codes mapped to any of ``analytes`` (file order), e.g. for prefetch templates."""
     wanted = set(analytes)
     return [e.code for e in entries() if e.analyte in wanted]
+
+
+def order_name(analyte: Analyte) -> str:
+    """The plain name a clinician reads when ``analyte`` is proposed for ordering."""
+    for entry in entries():
+        if entry.analyte == analyte and entry.primary:
+            return entry.short or entry.name
+    return analyte.value.replace("_", " ")
 
 
 def primary_code(analyte: Analyte) -> tuple[str, str]:

@@ -66,11 +66,11 @@ def _section(title: str, lines: Iterable[str]) -> list[str]:
 
 
 def _test_name(analyte: str) -> str:
-    from cds_service.fhir.loinc import primary_code
+    from cds_service.fhir.loinc import order_name
 
     try:
-        return primary_code(Analyte(analyte))[1]
-    except (ValueError, KeyError):
+        return order_name(Analyte(analyte))
+    except ValueError:
         return analyte.replace("_", " ")
 
 

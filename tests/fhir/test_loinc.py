@@ -70,3 +70,14 @@ def test_blood_gas_sodium_is_flagged_direct_ise_and_serum_is_not() -> None:
     assert loinc.lookup("2947-0").direct_ise  # whole blood
     assert not loinc.lookup("2951-2").direct_ise  # serum/plasma (indirect ISE in most labs)
     assert loinc.lookup("0000-0") is None
+
+
+def test_every_primary_entry_has_a_short_order_name() -> None:
+    # Order buttons carry a clinician's name for the test, not the LOINC long name
+    # (common practice: record systems show short orderable names).
+    for entry in loinc.entries():
+        if entry.primary:
+            assert entry.short, entry.code
+            assert "[" not in entry.short and "/volume" not in entry.short, entry.short
+    assert loinc.order_name(Analyte.URINE_SODIUM) == "urine sodium (spot)"
+    assert loinc.order_name(Analyte.TSH) == "TSH"
