@@ -13,9 +13,22 @@ from collections.abc import Iterator
 from pathlib import Path
 
 import pytest
+from hypothesis import HealthCheck, settings
 from sqlalchemy import create_engine, make_url, text
 
 from cds_service.store import Store
+
+# Property tests measure correctness, never speed: no per-example deadline (a loaded CI
+# machine would turn slowness into false failures). Under CI the examples are derandomised,
+# so a run is repeatable; locally they vary, to keep finding new cases.
+settings.register_profile(
+    "tonicity",
+    deadline=None,
+    suppress_health_check=[HealthCheck.too_slow],
+    derandomize=bool(os.environ.get("CI")),
+    print_blob=True,
+)
+settings.load_profile("tonicity")
 
 POSTGRES_ENV = "TONICITY_TEST_POSTGRES_URL"
 FIXTURES = Path(__file__).parent / "fixtures"
