@@ -148,7 +148,11 @@ def create_app(settings: Settings) -> FastAPI:
     @asynccontextmanager
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:
         from cds_service.clinical.thresholds import load_thresholds
+        from cds_service.fhir import warm_up
 
+        # Parse unit tables and FHIR models now, not on the first clinician's request
+        # (it cost about 0.8 s there).
+        warm_up()
         store = Store(settings.storage.url)
         http = httpx.AsyncClient(
             timeout=httpx.Timeout(

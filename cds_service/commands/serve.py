@@ -82,10 +82,16 @@ def resolve(args: argparse.Namespace):  # type: ignore[no-untyped-def]
 
 
 def preflight(settings) -> None:  # type: ignore[no-untyped-def]
-    """Open the store and check the auth clients before binding, so that a bad configuration
-    is a one-line message rather than a failed application start-up."""
+    """Check the clinical overrides, open the store and check the auth clients before binding,
+    so that a bad configuration is a one-line message rather than a failed start-up."""
+    from cds_service.clinical.thresholds import load_thresholds
     from cds_service.hooks.auth import Authenticator
     from cds_service.store import Store
+
+    try:
+        load_thresholds(settings.clinical)
+    except ValueError as exc:
+        raise UserError(f"invalid [clinical] threshold override: {exc}") from None
 
     try:
         store = Store(settings.storage.url)
@@ -107,12 +113,9 @@ def run(args: argparse.Namespace) -> int:
 
     settings, host, port = resolve(args)
     preflight(settings)
-    try:
-        from cds_service import logs
+    from cds_service import logs
 
-        logs.configure_logging(settings)
-    except ImportError:
-        pass
+    logs.configure_logging(settings)
     if not settings.auth.required:
         print(warning_text(host, port), file=sys.stderr, flush=True)
     config = uvicorn.Config(
