@@ -24,21 +24,19 @@ import json
 import re
 import sys
 import time
-from collections.abc import Callable
 from dataclasses import dataclass, field
-from datetime import UTC, date, datetime, timedelta
+from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
 from cds_service.errors import UserError
+from cds_service.hooks.timeshift import shift_times
 
 SERVICE_FOR_HOOK = {
     "patient-view": "sodium-workup",
     "order-select": "sodium-order-select",
     "order-sign": "sodium-order-sign",
 }
-_DATETIME = re.compile(r"^(\d{4}-\d{2}-\d{2}T\d{2}:\d{2}(?::\d{2}(?:\.\d+)?)?)(Z|[+-]\d{2}:\d{2})$")
-_DATE = re.compile(r"^\d{4}-\d{2}-\d{2}$")
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -139,45 +137,6 @@ def read_manifest(folder: Path) -> list[Expectation]:
     return out
 
 
-def shift_times(data: Any, delta: timedelta) -> Any:
-    """A copy of ``data`` with every FHIR dateTime/instant moved by ``delta`` and every
-    ``birthDate`` by the same number of whole days."""
-    if isinstance(data, dict):
-        return {
-            k: _shift_date(v, delta) if k == "birthDate" else shift_times(v, delta)
-            for k, v in data.items()
-        }
-    if isinstance(data, list):
-        return [shift_times(v, delta) for v in data]
-    if isinstance(data, str):
-        m = _DATETIME.match(data)
-        if m:
-            zone = m.group(2)
-            t = datetime.fromisoformat(m.group(1) + ("+00:00" if zone == "Z" else zone))
-            shifted = (t + delta).isoformat()
-            return shifted.replace("+00:00", "Z") if zone == "Z" else shifted
-    return data
-
-
-def _shift_date(value: Any, delta: timedelta) -> Any:
-    if isinstance(value, str) and _DATE.match(value):
-        try:
-            return (date.fromisoformat(value) + timedelta(days=delta.days)).isoformat()
-        except ValueError:
-            return value
-    return value
-
-
-def bundle_request_builder() -> Callable[..., dict[str, Any]] | None:
-    """The service's own CDS-client helper ``build_request(bundle, hook)``, the one
-    ``tonicity evaluate`` uses for a Bundle (None when this version has none)."""
-    try:
-        from cds_service.hooks.client import build_request
-    except ImportError:
-        return None
-    return build_request
-
-
 def _load_request(folder: Path, exp: Expectation) -> tuple[dict[str, Any] | None, str | None]:
     """(request body, None) or (None, why it is skipped); UserError for an unreadable file."""
     path = folder / exp.file
@@ -191,11 +150,10 @@ def _load_request(folder: Path, exp: Expectation) -> tuple[dict[str, Any] | None
         raise UserError(f"sample {path} is not a JSON object")
     if isinstance(body.get("hook"), str):
         return body, None
-    builder = bundle_request_builder()
-    if builder is None:
-        return None, "Bundle sample; this version has no Bundle-to-request helper"
+    from cds_service.hooks.client import build_request  # heavy: only when a Bundle is replayed
+
     try:
-        return builder(body, exp.hook), None
+        return build_request(body, exp.hook), None
     except (UserError, ValueError) as exc:
         return None, f"cannot build a {exp.hook} request: {exc}"
 

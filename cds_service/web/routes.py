@@ -175,7 +175,7 @@ def _sample_request(request: Request, name: str, hook: str | None, shift: bool) 
     With ``shift`` every date-time moves by (now - the sample's ``now``), so a story written
     for a fixed day plays out at the service's own clock, as ``tonicity replay`` does.
     """
-    from cds_service.commands.replay import shift_times
+    from cds_service.hooks.timeshift import shift_times
 
     try:
         sample, path = samples.find_sample(_sample_dir(request), name)

@@ -120,7 +120,7 @@ def test_the_service_reports_calls_and_cards_to_metrics(tmp_path: Path) -> None:
     )
     from datetime import UTC, datetime
 
-    from cds_service.commands.replay import shift_times
+    from cds_service.hooks.timeshift import shift_times
 
     body = shift_times(body, datetime.now(UTC) - datetime(2026, 3, 14, 9, tzinfo=UTC))
     with TestClient(create_app(settings)) as client:

@@ -13,7 +13,7 @@ from hypothesis import given
 from hypothesis import strategies as st
 
 from cds_service.cli import main
-from cds_service.commands.replay import shift_times
+from cds_service.hooks.timeshift import shift_times
 
 from .conftest import SAMPLES, free_port, live_server, load_manifest
 

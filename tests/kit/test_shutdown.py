@@ -19,7 +19,7 @@ from typing import Any
 import httpx
 import pytest
 
-from cds_service.commands.replay import shift_times
+from cds_service.hooks.timeshift import shift_times
 
 from .conftest import SAMPLES, free_port
 
