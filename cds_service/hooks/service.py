@@ -11,8 +11,11 @@ work-up and correction-rate cards. Callers' mistakes raise :class:`HookError` (4
 from __future__ import annotations
 
 import asyncio
+import functools
+import json
 import logging
 import re
+import secrets
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from datetime import datetime
@@ -269,22 +272,30 @@ async def evaluate(
     unavailable = [
         f"{KEY_NAMES.get(k, k)}: {reason}" for k, reason in sorted(state.unavailable.items())
     ]
-    links: list[Link] = []
+    snapshot = None
     if store is not None and any(f.code in TREND_CODES for f in findings):
-        link = await asyncio.to_thread(_trend_link, store, settings, ctx, findings, thresholds, now)
-        links = [link] if link else []
-    cards: list[Card] = [
-        render_card(
-            f,
-            now=now,
-            patient_id=call.patient_id,
-            unavailable=unavailable,
-            links=links if f.code in TREND_CODES else (),
-        )
-        for f in findings
-    ]
+        snapshot = _snapshot(settings, ctx, findings, thresholds, now)
+
+    def render(links: list[Link]) -> list[Card]:
+        return [
+            render_card(
+                f,
+                now=now,
+                patient_id=call.patient_id,
+                unavailable=unavailable,
+                links=links if f.code in TREND_CODES else (),
+            )
+            for f in findings
+        ]
+
+    cards = render([snapshot.link] if snapshot else [])
     if store is not None and cards:
-        await asyncio.to_thread(_log_cards, store, settings, call, cards, _client_id(caller), now)
+        client = _client_id(caller)
+        write = functools.partial(_record, store, settings, call, client_id=client, now=now)
+        if not await asyncio.to_thread(write, cards, snapshot) and snapshot is not None:
+            cards = render([])  # its snapshot is not stored: no link to it
+            await asyncio.to_thread(write, cards, None)
+        _count_cards(cards)
     return Outcome(
         response=to_json(HookResponse(cards=cards)),
         service_id=call.service.id,
@@ -299,41 +310,64 @@ def _client_id(caller: object) -> str | None:
     return str(issuer) if issuer else None
 
 
-def _trend_link(
-    store: Any,
-    settings: Settings,
-    ctx: Any,
-    findings: list[Finding],
-    thresholds: Any,
-    now: datetime,
-) -> Link | None:
+@dataclass(frozen=True, slots=True)
+class _PendingSnapshot:
+    """A trend snapshot ready to store, and the card link that opens it."""
+
+    row: Any
+    link: Link
+
+
+def _snapshot(
+    settings: Settings, ctx: Any, findings: list[Finding], thresholds: Any, now: datetime
+) -> _PendingSnapshot | None:
+    """The trend snapshot of this evaluation (stored with the card log), as
+    ``web.snapshots.save_snapshot`` would store it."""
+    from datetime import UTC, timedelta
+
+    from cds_service.store.schema import Snapshot
     from cds_service.web import snapshots
 
     try:
         payload = snapshots.snapshot_payload(ctx, findings, thresholds)
-        token = snapshots.save_snapshot(
-            store, payload, ttl_hours=settings.server.trend_link_ttl_hours, now=now
+        ttl = settings.server.trend_link_ttl_hours
+        if ttl <= 0:
+            raise ValueError(f"ttl_hours must be positive, got {ttl}")
+        at = now.astimezone(UTC) if now.tzinfo else now.replace(tzinfo=UTC)
+        token = secrets.token_urlsafe(snapshots.TOKEN_BYTES)
+        row = Snapshot(
+            token_hash=snapshots.token_hash(token),
+            created_at=at,
+            expires_at=at + timedelta(hours=ttl),
+            payload=json.dumps(payload, separators=(",", ":"), allow_nan=False),
         )
     except Exception:  # the trend view is a convenience: never fail the cards for it
         _log.exception("trend snapshot not saved")
         return None
-    return Link(
+    link = Link(
         label="Sodium trend and correction band",
         url=f"{settings.server.public_base_url}/trend/{token}",
         type="absolute",
     )
+    return _PendingSnapshot(row, link)
 
 
-def _log_cards(
+def _record(
     store: Any,
     settings: Settings,
     call: HookCall,
     cards: list[Card],
+    snapshot: _PendingSnapshot | None,
+    *,
     client_id: str | None,
     now: datetime,
-) -> None:
-    from cds_service import logs, ops
-    from cds_service.store.cards import CardLogRow, log_cards
+) -> bool:
+    """Write the card log and the trend snapshot in one transaction, without waiting for the
+    disk (``Store.log_session``). False, and logged, when it failed: the cards still reach the
+    clinician (feedback on them is kept as for an unknown card)."""
+    from cds_service import logs
+    from cds_service.store.cards import CardLogRow, card_records
+    from cds_service.web import snapshots
 
     patient_hash = logs.hash_patient_id(settings.logging.patient_id_salt, call.patient_id)
     rows = [
@@ -349,8 +383,19 @@ def _log_cards(
         for card in cards
     ]
     try:
-        log_cards(store, rows)
-    except Exception:  # the cards still reach the clinician; feedback will flag them unknown
-        _log.exception("card log not written")
-    for row in rows:
-        ops.count_card(row.finding_code)
+        with store.log_session() as s:
+            if snapshot is not None:
+                snapshots._purge(s, snapshot.row.created_at)  # as save_snapshot does
+                s.add(snapshot.row)
+            s.add_all(card_records(rows))
+    except Exception:
+        _log.exception("card log and trend snapshot not written")
+        return False
+    return True
+
+
+def _count_cards(cards: list[Card]) -> None:
+    from cds_service import ops
+
+    for card in cards:
+        ops.count_card(card.source.topic.code if card.source.topic else "unknown")

@@ -42,7 +42,16 @@ class CardLogRow:
 
 def log_cards(store: Store, rows: Iterable[CardLogRow]) -> None:
     """Write the cards of one response in one transaction (committed on return)."""
-    records = [
+    records = card_records(rows)
+    if not records:
+        return
+    with store.log_session() as s:
+        s.add_all(records)
+
+
+def card_records(rows: Iterable[CardLogRow]) -> list[CardLog]:
+    """The card-log rows to add, for a caller that writes them in its own transaction."""
+    return [
         CardLog(
             card_uuid=r.card_uuid,
             service_id=r.service_id,
@@ -54,7 +63,3 @@ def log_cards(store: Store, rows: Iterable[CardLogRow]) -> None:
         )
         for r in rows
     ]
-    if not records:
-        return
-    with store.session() as s:
-        s.add_all(records)

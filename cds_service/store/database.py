@@ -6,7 +6,7 @@ from collections.abc import Iterator
 from contextlib import contextmanager
 from datetime import UTC, datetime
 
-from sqlalchemy import Engine, create_engine, event, make_url
+from sqlalchemy import Engine, create_engine, event, make_url, text
 from sqlalchemy.orm import Session, sessionmaker
 
 from cds_service.store.schema import Base
@@ -25,8 +25,10 @@ class Store:
         else:
             kwargs.update(pool_pre_ping=True, pool_size=5, max_overflow=10)
         self.engine: Engine = create_engine(url, **kwargs)
-        if url.startswith("sqlite"):
+        self._sqlite = url.startswith("sqlite")
+        if self._sqlite:
             event.listen(self.engine, "connect", _sqlite_pragmas)
+            event.listen(self.engine, "checkin", _sqlite_restore_full)
         self._sessions = sessionmaker(self.engine, expire_on_commit=False)
         Base.metadata.create_all(self.engine)
 
@@ -45,6 +47,24 @@ class Store:
         with self._sessions() as s, s.begin():
             yield s
 
+    @contextmanager
+    def log_session(self) -> Iterator[Session]:
+        """A session for records a hook call leaves behind (card log, trend snapshots).
+
+        Committed without waiting for the disk: SQLite (WAL) with ``synchronous=NORMAL`` for
+        this transaction, PostgreSQL with ``synchronous_commit`` off. A commit still survives
+        a crash of this process; only an operating-system crash or power loss may lose the
+        last ones. Feedback, whose 200 promises it is stored, keeps :meth:`session`.
+        """
+        with self._sessions() as s, s.begin():
+            conn = s.connection()
+            if self._sqlite:
+                conn.info[_RELAXED] = True  # set back to FULL when the connection is returned
+                conn.exec_driver_sql("PRAGMA synchronous=NORMAL")
+            elif conn.dialect.name == "postgresql":
+                conn.execute(text("SET LOCAL synchronous_commit TO OFF"))
+            yield s
+
     def close(self) -> None:
         self.engine.dispose()
 
@@ -59,9 +79,20 @@ def as_utc(moment: datetime) -> datetime:
     return moment.astimezone(UTC)
 
 
+_RELAXED = "tonicity_synchronous_normal"
+
+
 def _sqlite_pragmas(dbapi_connection, _record) -> None:  # type: ignore[no-untyped-def]
     cur = dbapi_connection.cursor()
     cur.execute("PRAGMA journal_mode=WAL")
     cur.execute("PRAGMA synchronous=FULL")  # a 200 for feedback means it is on disk
     cur.execute("PRAGMA busy_timeout=30000")
     cur.close()
+
+
+def _sqlite_restore_full(dbapi_connection, record) -> None:  # type: ignore[no-untyped-def]
+    """A connection relaxed by :meth:`Store.log_session` goes back to the pool durable."""
+    if dbapi_connection is not None and record is not None and record.info.pop(_RELAXED, False):
+        cur = dbapi_connection.cursor()
+        cur.execute("PRAGMA synchronous=FULL")
+        cur.close()
