@@ -8,6 +8,7 @@ liver disease). The window maxima do not depend on the order the results arrive 
 
 from __future__ import annotations
 
+from collections import deque
 from collections.abc import Iterable
 from dataclasses import dataclass
 from datetime import datetime, timedelta
@@ -72,23 +73,34 @@ def max_rise(
     """Largest ``later - earlier`` over pairs at most ``hours`` apart (strictly later times),
     counting only pairs whose later result is at or after ``ending_after`` when given.
 
-    None when no two results at different times fall within the window.
+    None when no two results at different times fall within the window. Ties go to the
+    earliest later result, then to the latest earlier one. One pass: for each later result
+    the lowest earlier result in its window is kept at the front of a deque (a sliding-window
+    minimum), so a long series costs O(n), not O(n x results per window).
     """
     ordered = chronological(results)
     window = timedelta(hours=hours)
     best: Rise | None = None
-    for j, end in enumerate(ordered):
-        if ending_after is not None and end.time < ending_after:
+    lows: deque[int] = deque()  # indexes of candidate starts, values increasing from the front
+    oldest = 0  # first index inside the window of the current end
+    earlier = 0  # first index at the current end's time: starts are the indexes before it
+    for end in ordered:
+        while ordered[earlier].time < end.time:  # admit every start strictly before ``end``
+            value = ordered[earlier].value
+            while lows and ordered[lows[-1]].value >= value:  # keep the latest of equal lows
+                lows.pop()
+            lows.append(earlier)
+            earlier += 1
+        while end.time - ordered[oldest].time > window:
+            oldest += 1
+        while lows and lows[0] < oldest:
+            lows.popleft()
+        if not lows or (ending_after is not None and end.time < ending_after):
             continue
-        for i in range(j - 1, -1, -1):
-            start = ordered[i]
-            if end.time - start.time > window:
-                break
-            if start.time == end.time:
-                continue
-            amount = end.value - start.value
-            if best is None or amount > best.amount:
-                best = Rise(amount, start, end)
+        start = ordered[lows[0]]
+        amount = end.value - start.value
+        if best is None or amount > best.amount:
+            best = Rise(amount, start, end)
     return best
 
 
