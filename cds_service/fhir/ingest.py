@@ -174,10 +174,13 @@ def build_context(
     patient_id: str | None = None,
     draft_orders: Iterable[Any] = (),
     selections: Collection[str] = (),
+    report_lines: bool = True,
 ) -> Ingested:
-    """The ClinicalContext for one patient at ``now``, and what was understood of each resource."""
+    """The ClinicalContext for one patient at ``now``, and what was understood of each resource
+    (``report_lines`` False: the same context, an empty report, for callers that do not show
+    it)."""
     now = _aware(now)
-    report = ReportBuilder()
+    report = ReportBuilder(enabled=report_lines)
     collected = collect(resources, report)
     reader = ObservationReader(now, report, lambda a: timeline.lookback(a, settings))
     if patient_id is None:  # a Bundle of one patient's record: that patient is in context

@@ -6,11 +6,12 @@ import re
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from datetime import datetime, timedelta
+from functools import lru_cache
 from typing import Any
 
 from cds_service.clinical.context import CANONICAL_UNITS, Analyte, LabResult, RejectedResult
 from cds_service.fhir import loinc, units, validate
-from cds_service.fhir._json import codings, concept_text, items, number, obj, text
+from cds_service.fhir._json import concept_text, items, number, obj, system_uri, text
 from cds_service.fhir.report import ReportBuilder
 from cds_service.fhir.times import parse_datetime
 
@@ -19,11 +20,26 @@ _STRING_VALUE = re.compile(r"^\s*(<=|>=|<|>)?\s*(-?\d+(?:\.\d+)?)\s*(.*?)\s*$")
 
 
 def mapped_entries(concept: Any) -> list[loinc.LoincEntry]:
-    return [
-        e
-        for system, code, _ in codings(concept)
-        if system == loinc.LOINC_SYSTEM and (e := loinc.lookup(code)) is not None
-    ]
+    """The map's entries for the LOINC codings of a CodeableConcept, in coding order."""
+    out = []
+    for coding in items(obj(concept).get("coding")):
+        if isinstance(coding, dict):
+            entry = _mapped(coding.get("system"), coding.get("code"))
+            if entry is not None:
+                out.append(entry)
+    return out
+
+
+@lru_cache(maxsize=1024)
+def _lookup(system: str, code: str) -> loinc.LoincEntry | None:
+    return loinc.lookup(code) if system_uri(system) == loinc.LOINC_SYSTEM else None
+
+
+def _mapped(system: Any, code: Any) -> loinc.LoincEntry | None:
+    """As ``codings`` reads a coding: system and code must be non-blank strings."""
+    if isinstance(system, str) and isinstance(code, str) and system.strip() and code.strip():
+        return _lookup(system, code)
+    return None
 
 
 def effective_time(resource: dict[str, Any]) -> datetime | None:
@@ -179,6 +195,8 @@ class ObservationReader:
                 loinc=entry.code,
             )
         )
+        if not self.report.enabled:
+            return
         notes = [
             n for n, on in (("preliminary", preliminary), ("direct ISE", entry.direct_ise)) if on
         ]

@@ -45,12 +45,17 @@ class IngestReport:
 
 @dataclass(slots=True)
 class ReportBuilder:
+    """Collects report lines; with ``enabled`` False (a hook call, where no one reads the
+    report) it keeps none and builds an empty report."""
+
     lines: list[ReportLine] = field(default_factory=list)
+    enabled: bool = True
 
     def add(
         self, resource: str, understood_as: str, used: bool, reason: str = "", **kw: Any
     ) -> None:
-        self.lines.append(ReportLine(resource, understood_as, used, reason, **kw))
+        if self.enabled:
+            self.lines.append(ReportLine(resource, understood_as, used, reason, **kw))
 
     def ignore(self, resource: str, understood_as: str, reason: str, **kw: Any) -> None:
         self.add(resource, understood_as, False, reason, **kw)

@@ -5,15 +5,23 @@ from __future__ import annotations
 import calendar
 import re
 from datetime import UTC, date, datetime
+from functools import lru_cache
 
 _PARTIAL = re.compile(r"^(\d{4})(?:-(\d{2}))?(?:-(\d{2}))?$")
 
 
 def parse_datetime(value: object) -> datetime | None:
     """A FHIR dateTime/instant; partial dates ("2026", "2026-11") read as their first moment."""
-    if not isinstance(value, str) or not value.strip():
+    if not isinstance(value, str):
         return None
+    return _parse_datetime(value)
+
+
+@lru_cache(maxsize=8192)  # results of one draw share a time; datetimes are immutable
+def _parse_datetime(value: str) -> datetime | None:
     s = value.strip()
+    if not s:
+        return None
     m = _PARTIAL.match(s)
     try:
         if m:

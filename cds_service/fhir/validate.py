@@ -4,14 +4,13 @@ Observations are validated in their *read* form: only the elements Tonicity read
 code, subject, effective[x], issued, value[x], dataAbsentReason, component) go through the
 R4B model, so a narrative or reference range Tonicity never looks at costs nothing and cannot
 make a usable result unusable. Within one request, Observations that differ only in id, time
-and numeric value share one validation: times are parsed strictly by
-``times.parse_datetime``, and a JSON number is always a valid FHIR decimal (a value sent as
-a string is part of the shared key, so it is validated on its own).
+and numeric value share one validation (keyed by the repr of the rest): times are parsed
+strictly by ``times.parse_datetime``, and a JSON number is always a valid FHIR decimal (a
+value sent as a string is part of the shared key, so it is validated on its own).
 """
 
 from __future__ import annotations
 
-import json
 import math
 from functools import cache
 from importlib import import_module
@@ -33,6 +32,7 @@ _READ = {
         "valueInteger", "dataAbsentReason", "component",
     ),
 }  # fmt: skip
+_UNSEEN: Any = object()
 _VOLATILE = frozenset({"id", "effectiveDateTime", "effectivePeriod", "effectiveInstant", "issued"})
 
 
@@ -76,17 +76,17 @@ def problem(resource: dict[str, Any], memo: dict[str, str | None] | None = None)
     fields = _READ.get(resource_type)
     if fields is None:
         return _check(resource_type, resource)
-    lean = {k: resource[k] for k in fields if k in resource}
     if memo is None:
-        return _check(resource_type, lean)
-    shared = {k: v for k, v in lean.items() if k not in _VOLATILE}
+        return _check(resource_type, {k: resource[k] for k in fields if k in resource})
+    shared = {k: resource[k] for k in fields if k in resource and k not in _VOLATILE}
     quantity = shared.get("valueQuantity")
     if isinstance(quantity, dict) and _is_json_number(quantity.get("value")):
         shared["valueQuantity"] = {**quantity, "value": 0}
-    try:
-        key = json.dumps(shared, sort_keys=True)
-    except (TypeError, ValueError):
-        return _check(resource_type, lean)
-    if key not in memo:  # validate exactly what the key stands for, never one time or value
-        memo[key] = _check(resource_type, shared)
-    return memo[key]
+    # repr of parsed JSON (dicts, lists, str, int, float, bool, None) tells any two different
+    # values apart (1 and 1.0 and True differ, strings are quoted); key order only costs a
+    # second check of the same shape. About half the cost of json.dumps(sort_keys=True).
+    key = repr(shared)
+    found = memo.get(key, _UNSEEN)
+    if found is _UNSEEN:  # validate exactly what the key stands for, never one time or value
+        found = memo[key] = _check(resource_type, shared)
+    return found

@@ -262,6 +262,7 @@ async def evaluate(
         patient_id=call.patient_id,
         draft_orders=call.draft_orders,
         selections=call.selections,
+        report_lines=False,  # the hook response does not carry the ingest report
     )
     ctx = ingested.context
     if call.service.hook == "patient-view":

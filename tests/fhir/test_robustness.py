@@ -8,7 +8,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from cds_service.clinical.context import Analyte
-from tests.fhir.factory import bundle, ingest, observation
+from tests.fhir.factory import NOW, PATIENT_ID, bundle, ingest, observation
 
 _SCALARS = st.none() | st.booleans() | st.integers() | st.floats() | st.text(max_size=12)
 _JSON = st.recursive(
@@ -134,3 +134,54 @@ def test_a_reader_failure_costs_one_resource_not_the_request(monkeypatch) -> Non
     assert res.context.current[Analyte.SODIUM].value == 127
     (line,) = [x for x in res.report.lines if x.resource == "Condition/c1"]
     assert line.reason == "could not be read (RuntimeError)" and not line.used
+
+
+@settings(max_examples=200, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(
+    resources=st.lists(_JSON | _FHIRISH, max_size=6), drafts=st.lists(_JSON | _FHIRISH, max_size=3)
+)
+def test_skipping_report_lines_leaves_the_context_unchanged(
+    resources: list[Any], drafts: list[Any]
+) -> None:
+    # Law (common practice): the report is a by-product; a hook call that does not show it
+    # (report_lines=False) must read exactly the same clinical context.
+    from cds_service.config import IngestSettings
+    from cds_service.fhir import build_context
+
+    def run(report_lines: bool) -> Any:
+        return build_context(
+            list(resources),
+            now=NOW,
+            settings=IngestSettings(),
+            patient_id=PATIENT_ID,
+            draft_orders=tuple(drafts),
+            report_lines=report_lines,
+        )
+
+    full, lean = run(True), run(False)
+    assert lean.context == full.context
+    assert lean.report.lines == ()
+
+
+@settings(max_examples=200, deadline=None)
+@given(
+    values=st.lists(st.tuples(_JSON, _JSON, st.integers(0, 59)), min_size=1, max_size=5),
+    shared_unit=st.sampled_from(["mmol/L", "mEq/L", None]),
+)
+def test_shared_validation_answers_as_one_validation_each(
+    values: list[tuple[Any, Any, int]], shared_unit: str | None
+) -> None:
+    # Law: validating Observations one by one and through the per-request memo (which shares
+    # one check between results that differ in id, time and numeric value) give one answer
+    # (times here are well formed: the memo leaves time syntax to times.parse_datetime).
+    from cds_service.fhir import validate
+
+    memo: dict[str, str | None] = {}
+    for i, (value, status, minute) in enumerate(values):
+        obs = observation(f"m{i}", "2951-2", None)
+        obs.update(
+            status=status if i % 2 else "final",
+            effectiveDateTime=f"2026-11-30T10:{minute:02d}:00Z",
+            valueQuantity={"value": value, "unit": shared_unit, "code": shared_unit},
+        )
+        assert validate.problem(obs, memo) == validate.problem(obs)
