@@ -7,11 +7,20 @@ make a usable result unusable. Within one request, Observations that differ only
 and numeric value share one validation (keyed by the repr of the rest): times are parsed
 strictly by ``times.parse_datetime``, and a JSON number is always a valid FHIR decimal (a
 value sent as a string is part of the shared key, so it is validated on its own).
+
+Validation is a pure function of the JSON it is given, so answers are also kept across
+requests (:class:`_Answers`, bounded): a record system sends the same shapes again and again
+(the same patient's results on every chart opening, the same order templates), and each is
+checked once per process. The cache holds only a 16-byte digest of what was checked and the
+one-line answer, never the resource (no patient data stays behind).
 """
 
 from __future__ import annotations
 
+import hashlib
 import math
+import threading
+from collections import OrderedDict
 from functools import cache
 from importlib import import_module
 from typing import Any
@@ -45,6 +54,35 @@ def model_for(resource_type: str) -> Any:
     return getattr(module, resource_type)
 
 
+class _Answers:
+    """Validation answers by digest of (resource type, repr of the checked JSON); LRU-bounded."""
+
+    def __init__(self, size: int) -> None:
+        if size < 1:
+            raise ValueError("the validation cache needs room for at least one answer")
+        self._size = size
+        self._answers: OrderedDict[bytes, str | None] = OrderedDict()
+        self._lock = threading.Lock()
+
+    def check(self, resource_type: str, data: dict[str, Any], key: str | None = None) -> str | None:
+        """``_check(resource_type, data)``; ``key`` is ``repr(data)`` when the caller has it."""
+        text = f"{resource_type}\0{repr(data) if key is None else key}"
+        digest = hashlib.blake2b(text.encode("utf-8", "surrogatepass"), digest_size=16).digest()
+        with self._lock:
+            if digest in self._answers:
+                self._answers.move_to_end(digest)
+                return self._answers[digest]
+        answer = _check(resource_type, data)
+        with self._lock:
+            self._answers[digest] = answer
+            if len(self._answers) > self._size:
+                self._answers.popitem(last=False)
+        return answer
+
+
+_ANSWERS = _Answers(4096)
+
+
 def _check(resource_type: str, resource: dict[str, Any]) -> str | None:
     try:
         model_for(resource_type).model_validate(resource)
@@ -75,9 +113,9 @@ def problem(resource: dict[str, Any], memo: dict[str, str | None] | None = None)
         return f"resource type {resource_type!r} is not read"
     fields = _READ.get(resource_type)
     if fields is None:
-        return _check(resource_type, resource)
+        return _ANSWERS.check(resource_type, resource)
     if memo is None:
-        return _check(resource_type, {k: resource[k] for k in fields if k in resource})
+        return _ANSWERS.check(resource_type, {k: resource[k] for k in fields if k in resource})
     shared = {k: resource[k] for k in fields if k in resource and k not in _VOLATILE}
     quantity = shared.get("valueQuantity")
     if isinstance(quantity, dict) and _is_json_number(quantity.get("value")):
@@ -88,5 +126,5 @@ def problem(resource: dict[str, Any], memo: dict[str, str | None] | None = None)
     key = repr(shared)
     found = memo.get(key, _UNSEEN)
     if found is _UNSEEN:  # validate exactly what the key stands for, never one time or value
-        found = memo[key] = _check(resource_type, shared)
+        found = memo[key] = _ANSWERS.check(resource_type, shared, key)
     return found
