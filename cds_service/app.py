@@ -13,6 +13,7 @@ answered as 400), 401 for failed client authentication (with ``WWW-Authenticate:
 
 from __future__ import annotations
 
+import gc
 import logging
 import time
 from collections.abc import AsyncIterator, Awaitable, Callable, MutableMapping
@@ -165,6 +166,11 @@ def create_app(settings: Settings) -> FastAPI:
             app.state.http = http
             app.state.thresholds = load_thresholds(settings.clinical)
             app.state.authenticator = Authenticator(settings, store, http)
+            # Everything loaded so far (models, schemas, data tables: ~180,000 objects) lives
+            # as long as the process: take it out of the collector's sight, or each full
+            # collection walks it again (~300 ms, a p99 spike on whichever call it hits).
+            gc.collect()
+            gc.freeze()
             yield
         finally:
             await http.aclose()
