@@ -7,7 +7,7 @@ import re
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass
 from enum import StrEnum
-from functools import cache
+from functools import cache, lru_cache
 from types import MappingProxyType
 
 from cds_service.clinical._data import DataFileError, check_source, cite, read_data_file, require
@@ -121,6 +121,13 @@ def classify(
     names: Iterable[str], rxnorm: Iterable[str], display: str = ""
 ) -> list[tuple[DrugClass, str]]:
     """(class, generic name) pairs for a medication, each class once, in file order."""
+    return list(_classify(tuple(names), tuple(rxnorm), display))
+
+
+@lru_cache(maxsize=1024)  # pure; a chart asks about the same medications several times a call
+def _classify(
+    names: tuple[str, ...], rxnorm: tuple[str, ...], display: str
+) -> tuple[tuple[DrugClass, str], ...]:
     by_name, by_code, patterns = _indexes()
     hits: list[tuple[DrugClass, str]] = []
     for name in names:
@@ -133,7 +140,7 @@ def classify(
     for c, n in hits:
         unique.setdefault(c.key, (c, n))
     order = {c.key: i for i, c in enumerate(drug_classes())}
-    return sorted(unique.values(), key=lambda cn: order[cn[0].key])
+    return tuple(sorted(unique.values(), key=lambda cn: order[cn[0].key]))
 
 
 def match_medication(med: MedicationEntry | DraftMedication) -> list[DrugMatch]:

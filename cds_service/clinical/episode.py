@@ -43,8 +43,24 @@ class Episode:
         return self.run + self.after
 
 
+#: The last answer for a tuple series: one evaluation asks 3-5 times (severity, surveillance,
+#: limits, trend snapshot) about the same immutable tuple of frozen results.
+_last: tuple[tuple[LabResult, ...], float, Episode | None] | None = None
+
+
 def current_episode(series: Iterable[LabResult], lower_normal: float) -> Episode | None:
     """The latest hyponatremic run of ``series`` (None when no result is low)."""
+    global _last
+    last = _last
+    if last is not None and last[0] is series and last[1] == lower_normal:
+        return last[2]
+    episode = _current_episode(series, lower_normal)
+    if isinstance(series, tuple):  # immutable: the same object always has the same answer
+        _last = (series, lower_normal, episode)
+    return episode
+
+
+def _current_episode(series: Iterable[LabResult], lower_normal: float) -> Episode | None:
     ordered = chronological(series)
     low = [i for i, r in enumerate(ordered) if r.value < lower_normal]
     if not low:
