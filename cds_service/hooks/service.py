@@ -367,7 +367,7 @@ def _record(
     disk (``Store.log_session``). False, and logged, when it failed: the cards still reach the
     clinician (feedback on them is kept as for an unknown card)."""
     from cds_service import logs
-    from cds_service.store.cards import CardLogRow, card_records
+    from cds_service.store.cards import CardLogRow, add_cards
     from cds_service.web import snapshots
 
     patient_hash = logs.hash_patient_id(settings.logging.patient_id_salt, call.patient_id)
@@ -388,7 +388,7 @@ def _record(
             if snapshot is not None:
                 snapshots._purge(s, snapshot.row.created_at)  # as save_snapshot does
                 s.add(snapshot.row)
-            s.add_all(card_records(rows))
+            add_cards(s, rows)
     except Exception:
         _log.exception("card log and trend snapshot not written")
         return False

@@ -9,6 +9,9 @@ from collections.abc import Iterable
 from dataclasses import dataclass
 from datetime import datetime
 
+from sqlalchemy import insert
+from sqlalchemy.orm import Session
+
 from cds_service.store.database import Store, as_utc
 from cds_service.store.schema import CardLog
 
@@ -42,17 +45,18 @@ class CardLogRow:
 
 def log_cards(store: Store, rows: Iterable[CardLogRow]) -> None:
     """Write the cards of one response in one transaction (committed on return)."""
-    records = card_records(rows)
-    if not records:
+    rows = list(rows)
+    if not rows:
         return
     with store.log_session() as s:
-        s.add_all(records)
+        add_cards(s, rows)
 
 
-def card_records(rows: Iterable[CardLogRow]) -> list[CardLog]:
-    """The card-log rows to add, for a caller that writes them in its own transaction."""
-    return [
-        CardLog(
+def add_cards(session: Session, rows: Iterable[CardLogRow]) -> None:
+    """Insert the card-log rows in ``session``'s transaction (one multi-row INSERT, without
+    the ORM's per-object bookkeeping: the rows are never read back in this session)."""
+    values = [
+        dict(
             card_uuid=r.card_uuid,
             service_id=r.service_id,
             finding_code=r.finding_code,
@@ -63,3 +67,5 @@ def card_records(rows: Iterable[CardLogRow]) -> list[CardLog]:
         )
         for r in rows
     ]
+    if values:
+        session.execute(insert(CardLog), values)
