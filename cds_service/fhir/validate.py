@@ -42,8 +42,20 @@ _READ = {
     ),
 }  # fmt: skip
 _UNSEEN: Any = object()
+
+
+class _Absent:
+    def __repr__(self) -> str:
+        return "<absent>"
+
+
+_ABSENT: Any = _Absent()
 _VOLATILE = frozenset({"id", "effectiveDateTime", "effectivePeriod", "effectiveInstant", "issued"})
 
+
+#: The read fields a shared check covers (all but the volatile ones), in key order.
+_SHARED = {t: tuple(k for k in fields if k not in _VOLATILE) for t, fields in _READ.items()}
+_QUANTITY_AT = {t: fields.index("valueQuantity") for t, fields in _SHARED.items()}
 
 RESOURCE_TYPES = tuple(_MODULES)
 
@@ -116,15 +128,20 @@ def problem(resource: dict[str, Any], memo: dict[str, str | None] | None = None)
         return _ANSWERS.check(resource_type, resource)
     if memo is None:
         return _ANSWERS.check(resource_type, {k: resource[k] for k in fields if k in resource})
-    shared = {k: resource[k] for k in fields if k in resource and k not in _VOLATILE}
-    quantity = shared.get("valueQuantity")
-    if isinstance(quantity, dict) and _is_json_number(quantity.get("value")):
-        shared["valueQuantity"] = {**quantity, "value": 0}
-    # repr of parsed JSON (dicts, lists, str, int, float, bool, None) tells any two different
-    # values apart (1 and 1.0 and True differ, strings are quoted); key order only costs a
-    # second check of the same shape. About half the cost of json.dumps(sort_keys=True).
-    key = repr(shared)
+    # The key: repr of the read, non-volatile fields in a fixed order (absent ones as
+    # <absent>, which no JSON value reprs to), with a numeric valueQuantity.value as 0. repr
+    # of parsed JSON (dicts, lists, str, int, float, bool, None) tells any two different
+    # values apart (1, 1.0 and True differ; strings are quoted); about half the cost of
+    # json.dumps(sort_keys=True), and no copy of the resource unless it must be checked.
+    shared_fields = _SHARED[resource_type]
+    parts = [resource.get(k, _ABSENT) for k in shared_fields]
+    quantity = resource.get("valueQuantity")
+    numeric = isinstance(quantity, dict) and _is_json_number(quantity.get("value"))
+    if numeric:
+        parts[_QUANTITY_AT[resource_type]] = {**quantity, "value": 0}
+    key = repr(parts)
     found = memo.get(key, _UNSEEN)
     if found is _UNSEEN:  # validate exactly what the key stands for, never one time or value
+        shared = {k: v for k, v in zip(shared_fields, parts, strict=True) if v is not _ABSENT}
         found = memo[key] = _ANSWERS.check(resource_type, shared, key)
     return found
