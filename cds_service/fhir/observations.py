@@ -102,7 +102,7 @@ class ObservationReader:
     results: list[LabResult] = field(default_factory=list)
     rejected: list[RejectedResult] = field(default_factory=list)
     _seen: dict[tuple[Analyte, datetime, float], str] = field(default_factory=dict)
-    _valid: dict[str, str | None] = field(default_factory=dict)
+    _valid: dict[bytes, str | None] = field(default_factory=dict)
 
     def read(self, resource: dict[str, Any], key: str) -> None:
         main = mapped_entries(resource.get("code"))[:1]

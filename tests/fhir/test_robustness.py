@@ -176,7 +176,7 @@ def test_shared_validation_answers_as_one_validation_each(
     # (times here are well formed: the memo leaves time syntax to times.parse_datetime).
     from cds_service.fhir import validate
 
-    memo: dict[str, str | None] = {}
+    memo: dict[bytes, str | None] = {}
     for i, (value, status, minute) in enumerate(values):
         obs = observation(f"m{i}", "2951-2", None)
         obs.update(
