@@ -11,6 +11,7 @@ from __future__ import annotations
 from collections.abc import Collection, Iterable
 from dataclasses import dataclass, field
 from datetime import UTC, datetime, timedelta
+from functools import lru_cache
 from typing import Any
 
 from cds_service.clinical.context import (
@@ -48,11 +49,17 @@ def _other_patient(resource: dict[str, Any], patient_id: str | None) -> str | No
         return None
     for name in _SUBJECT_FIELDS:
         ref = reference(resource.get(name))
-        if ref and "Patient/" in ref:
-            pid = ref.rsplit("Patient/", 1)[1].split("/")[0]
-            if pid != patient_id:
+        if ref:
+            pid = _patient_in(ref)
+            if pid is not None and pid != patient_id:
                 return ref
     return None
+
+
+@lru_cache(maxsize=1024)  # every result of a record names the same patient
+def _patient_in(ref: str) -> str | None:
+    """The Patient id a reference names, or None when it names no Patient."""
+    return ref.rsplit("Patient/", 1)[1].split("/")[0] if "Patient/" in ref else None
 
 
 def _start(resource: dict[str, Any]) -> datetime | None:

@@ -7,7 +7,7 @@ from collections.abc import Callable
 from dataclasses import dataclass, field
 from datetime import datetime, timedelta
 from functools import lru_cache
-from typing import Any
+from typing import Any, NamedTuple
 
 from cds_service.clinical.context import CANONICAL_UNITS, Analyte, LabResult, RejectedResult
 from cds_service.fhir import loinc, units, validate
@@ -53,8 +53,7 @@ def effective_time(resource: dict[str, Any]) -> datetime | None:
     return parse_datetime(resource.get("issued"))
 
 
-@dataclass(frozen=True, slots=True)
-class _Value:
+class _Value(NamedTuple):  # one per result read: a tuple is built ~4 x faster than a dataclass
     value: float
     comparator: str | None
     unit: str | None
