@@ -109,6 +109,8 @@ def configure_logging(settings: Settings) -> None:
         lib = logging.getLogger(name)
         lib.handlers.clear()
         lib.propagate = True
+        lib.disabled = False  # an earlier logging.config.dictConfig may have disabled it
+        lib.setLevel(logging.NOTSET)  # follow the configured root level, not uvicorn's own
     # httpx logs each request URL with its query at INFO: FHIR queries carry patient ids.
     logging.getLogger("httpx").setLevel(logging.WARNING)
     if settings.logging.patient_id_salt == DEFAULT_SALT and settings.auth.required:
