@@ -386,7 +386,7 @@ def _record(
     try:
         with store.log_session() as s:
             if snapshot is not None:
-                snapshots._purge(s, snapshot.row.created_at)  # as save_snapshot does
+                snapshots.purge_in(s, snapshot.row.created_at)  # as save_snapshot does
                 s.add(snapshot.row)
             add_cards(s, rows)
     except Exception:

@@ -167,7 +167,7 @@ def save_snapshot(
     token = secrets.token_urlsafe(TOKEN_BYTES)
     body = json.dumps(payload, separators=(",", ":"), allow_nan=False)
     with store.session() as s:
-        _purge(s, now)
+        purge_in(s, now)
         s.add(
             Snapshot(
                 token_hash=token_hash(token),
@@ -206,10 +206,11 @@ def purge_expired(store: Store, now: datetime) -> int:
     old link still says "expired" (410) rather than "unknown" (404); then it goes too.
     """
     with store.session() as s:
-        return _purge(s, _utc(now))
+        return purge_in(s, _utc(now))
 
 
-def _purge(s: Session, now: datetime) -> int:
+def purge_in(s: Session, now: datetime) -> int:
+    """Purge expired snapshots inside an open session (see :func:`purge_expired`)."""
     s.execute(delete(Snapshot).where(Snapshot.expires_at <= now - timedelta(days=TOMBSTONE_DAYS)))
     result = s.execute(
         update(Snapshot)
