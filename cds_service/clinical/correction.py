@@ -141,6 +141,19 @@ def applicable_limits(ctx: ClinicalContext, th: Thresholds) -> CorrectionLimits:
     return CorrectionLimits(th.correction_limit_24h, th.correction_limit_48h)
 
 
+def risen_last_24h(ctx: ClinicalContext) -> float:
+    """How far sodium has already risen in the 24 h up to the current result: the current
+    value minus the lowest result of those 24 h (0 when it has not risen). Orders spend only
+    what is left of the 24-h limit."""
+    current = ctx.current.get(Analyte.SODIUM)
+    if current is None:
+        return 0.0
+    since = current.time - timedelta(hours=24)
+    series = ctx.series.get(Analyte.SODIUM, ())
+    window = [r.value for r in series if since <= r.time <= current.time]
+    return max(0.0, current.value - min([*window, current.value]))
+
+
 def surveil(ctx: ClinicalContext, th: Thresholds) -> CorrectionStatus | None:
     """Window maxima over the current episode and what followed it, for rises that ended
     within the look-back (an old overcorrection is history); None without an episode."""

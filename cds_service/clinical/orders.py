@@ -10,7 +10,7 @@ from dataclasses import dataclass
 
 from cds_service.clinical._data import cite
 from cds_service.clinical.context import Analyte, ClinicalContext, LabResult
-from cds_service.clinical.correction import CorrectionLimits, applicable_limits
+from cds_service.clinical.correction import CorrectionLimits, applicable_limits, risen_last_24h
 from cds_service.clinical.drugs import DrugMatch, DrugRole, draft_matches
 from cds_service.clinical.findings import (
     Finding,
@@ -35,6 +35,7 @@ class OrderContext:
     sodium: LabResult | None
     water: BodyWater | None
     limits: CorrectionLimits
+    risen_24h: float = 0.0
 
     @property
     def hyponatremic(self) -> bool:
@@ -43,15 +44,16 @@ class OrderContext:
     def effect(self, fluid: ResolvedFluid) -> InfusionEffect | None:
         if self.sodium is None or self.water is None:
             return None
-        return infusion_effect(fluid, self.sodium.value, self.water.litres, self.limits.limit_24h)
+        return infusion_effect(fluid, self.sodium.value, self.water.litres, self.limits.limit_24h,
+                               self.risen_24h)
 
     def arithmetic(self, fluid: ResolvedFluid) -> tuple[list[Value], list[str], list[str]]:
         """(values, formula lines, detail lines) of a fluid's predicted effect."""
         if self.sodium is None or self.water is None:
             why = "serum sodium" if self.sodium is None else "body weight"
             return [], [], [f"The change per litre needs a recorded {why}; not computed."]
-        effect = infusion_effect(fluid, self.sodium.value, self.water.litres,
-                                 self.limits.limit_24h)
+        effect = self.effect(fluid)
+        assert effect is not None
         values = [value(V.TOTAL_BODY_WATER, effect.tbw),
                   value(V.DELTA_SODIUM_PER_LITER, effect.delta_per_liter)]
         return values, [*self.water.lines(), *effect.lines()], list(self.water.notes())
@@ -159,7 +161,11 @@ def hypertonic_saline_finding(o: OrderContext, fluids: list[ResolvedFluid]) -> F
         summary += f": {signed(effect.delta_per_liter)} mmol/L per litre"
         if effect.max_volume_24h is not None:
             values.append(value(V.MAX_VOLUME_24H, effect.max_volume_24h, 2))
-            summary += f", {num(effect.max_volume_24h, 2)} L reaches the {limit} mmol/L 24-h limit"
+            if effect.headroom_24h == 0:
+                summary += f"; the {limit} mmol/L 24-h limit is already used"
+            else:
+                summary += (f", {num(effect.max_volume_24h, 2)} L reaches the {limit} mmol/L "
+                            "24-h limit")
         rise = effect.projected_rise_24h
         if rise is not None and rise > o.limits.limit_24h:
             cautions.append(f"As drafted the projected 24-h rise is {signed(rise)} mmol/L, above "
@@ -247,7 +253,7 @@ def vaptan_finding(o: OrderContext) -> Finding | None:
 def order_findings(ctx: ClinicalContext, th: Thresholds) -> list[Finding]:
     """Findings about the selected draft orders."""
     o = OrderContext(ctx, th, ctx.current.get(Analyte.SODIUM), body_water(ctx, th),
-                     applicable_limits(ctx, th))
+                     applicable_limits(ctx, th), risen_last_24h(ctx))
     fluids = _selected_fluids(ctx, th)
     found = [
         hypotonic_fluid_finding(o, fluids),

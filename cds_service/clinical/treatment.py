@@ -74,6 +74,12 @@ class InfusionEffect:
     max_volume_24h: float | None  # litres to reach the 24-h limit; None if it does not raise Na
     volume_24h: float | None  # litres drafted to run within 24 h, when stated
     limit_24h: float
+    risen_24h: float = 0.0  # rise already made in the 24 h up to the latest sodium
+
+    @property
+    def headroom_24h(self) -> float:
+        """What is left of the 24-h limit after the rise already made (never negative)."""
+        return max(0.0, self.limit_24h - self.risen_24h)
 
     @property
     def projected_rise_24h(self) -> float | None:
@@ -88,9 +94,17 @@ class InfusionEffect:
             f"{num(self.serum_sodium)}) / ({num(self.tbw)} + 1) = "
             f"{signed(self.delta_per_liter)} mmol/L"
         ]
-        if self.max_volume_24h is not None:
+        if self.max_volume_24h is not None and self.headroom_24h == 0:
+            out.append(f"24-h limit already used: sodium has risen {num(self.risen_24h)} mmol/L "
+                       f"in 24 h against a limit of {num(self.limit_24h)}; any further rise "
+                       "exceeds it")
+        elif self.max_volume_24h is not None:
+            if self.risen_24h > 0:
+                out.append(f"Left of the {num(self.limit_24h)} mmol/L 24-h limit = "
+                           f"{num(self.limit_24h)} − {num(self.risen_24h)} already risen = "
+                           f"{num(self.headroom_24h)} mmol/L")
             out.append(f"Volume to the {num(self.limit_24h)} mmol/L 24-h limit = "
-                       f"{num(self.limit_24h)} / {num(self.delta_per_liter)} = "
+                       f"{num(self.headroom_24h)} / {num(self.delta_per_liter)} = "
                        f"{num(self.max_volume_24h, 2)} L")
         rise = self.projected_rise_24h
         if rise is not None and self.volume_24h is not None:
@@ -109,15 +123,23 @@ def drafted_volume_24h(fluid: ResolvedFluid) -> float | None:
 
 
 def infusion_effect(
-    fluid: ResolvedFluid, serum_sodium: float, tbw: float, limit_24h: float
+    fluid: ResolvedFluid,
+    serum_sodium: float,
+    tbw: float,
+    limit_24h: float,
+    risen_24h: float = 0.0,
 ) -> InfusionEffect:
+    """Adrogué–Madias change per litre, and the volume that uses up what is left of the 24-h
+    limit once the rise already made in the last 24 h (``risen_24h``) is counted."""
     delta = formulas.delta_sodium_per_liter(fluid.sodium, fluid.potassium, serum_sodium, tbw)
+    headroom = max(0.0, limit_24h - max(0.0, risen_24h))
     return InfusionEffect(
         fluid=fluid,
         serum_sodium=serum_sodium,
         tbw=tbw,
         delta_per_liter=delta,
-        max_volume_24h=formulas.volume_to_limit(limit_24h, delta),
+        max_volume_24h=formulas.volume_to_limit(headroom, delta),
         volume_24h=drafted_volume_24h(fluid),
         limit_24h=limit_24h,
+        risen_24h=max(0.0, risen_24h),
     )
