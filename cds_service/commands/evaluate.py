@@ -12,10 +12,9 @@ from __future__ import annotations
 import argparse
 import json
 import sys
-from datetime import UTC, datetime
-from pathlib import Path
 from typing import Any
 
+from cds_service.commands._inputs import parse_now, read_json_file
 from cds_service.errors import UserError
 
 
@@ -38,33 +37,10 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--config", metavar="FILE", default=None, help="TOML configuration")
 
 
-def read_json(path: str, what: str) -> Any:
-    try:
-        raw = Path(path).read_bytes()
-    except OSError as exc:
-        raise UserError(f"cannot read {what} {path}: {exc.strerror or exc}") from None
-    from cds_service.hooks.models import strict_json
-
-    try:
-        return strict_json(raw)
-    except ValueError as exc:
-        raise UserError(f"{what} {path} is not valid JSON: {exc}") from None
-
-
-def parse_now(text: str | None) -> datetime:
-    if text is None:
-        return datetime.now(UTC)
-    try:
-        value = datetime.fromisoformat(text)
-    except ValueError:
-        raise UserError(f"--now {text!r} is not an ISO 8601 date-time") from None
-    return value if value.tzinfo else value.replace(tzinfo=UTC)
-
-
 def build_body(args: argparse.Namespace) -> dict[str, Any]:
     from cds_service.hooks.client import build_request, draft_resources
 
-    data = read_json(args.path, "input")
+    data = read_json_file(args.path, "input")
     if not isinstance(data, dict):
         raise UserError(f"{args.path} is neither a CDS Hooks request nor a FHIR Bundle")
     if "hook" in data:
@@ -77,7 +53,7 @@ def build_body(args: argparse.Namespace) -> dict[str, Any]:
         raise UserError(f"{args.path} is neither a CDS Hooks request nor a FHIR Bundle")
     drafts = None
     if args.draft_orders:
-        drafts = draft_resources(read_json(args.draft_orders, "draft orders"))
+        drafts = draft_resources(read_json_file(args.draft_orders, "draft orders"))
     return build_request(data, args.hook or "patient-view", drafts)
 
 

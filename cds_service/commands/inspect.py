@@ -10,10 +10,9 @@ from __future__ import annotations
 
 import argparse
 import json
-from datetime import UTC, datetime
-from pathlib import Path
 from typing import Any
 
+from cds_service.commands._inputs import parse_now, read_json_file
 from cds_service.errors import UserError
 
 
@@ -23,28 +22,6 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--now", help="evaluation time, ISO 8601 (default: now)")
     parser.add_argument("--patient", help="patient id (default: from the request or Bundle)")
     parser.add_argument("--config", help="configuration file (for [ingest] settings)")
-
-
-def _read(path: str) -> Any:
-    p = Path(path)
-    try:
-        raw = p.read_bytes()
-    except OSError as exc:
-        raise UserError(f"cannot read {p}: {exc.strerror}") from None
-    try:
-        return json.loads(raw)
-    except (UnicodeDecodeError, json.JSONDecodeError) as exc:
-        raise UserError(f"{p} is not valid JSON: {exc}") from None
-
-
-def _now(text: str | None) -> datetime:
-    if not text:
-        return datetime.now(UTC)
-    try:
-        when = datetime.fromisoformat(text.replace("Z", "+00:00"))
-    except ValueError:
-        raise UserError(f"--now {text!r} is not an ISO 8601 date-time") from None
-    return when if when.tzinfo else when.replace(tzinfo=UTC)
 
 
 def split_input(data: Any) -> tuple[list[Any], list[Any], str | None, list[str]]:
@@ -109,11 +86,11 @@ def run(args: argparse.Namespace) -> int:
     from cds_service.config import IngestSettings, load_settings
     from cds_service.fhir import build_context
 
-    resources, drafts, pid, selections = split_input(_read(args.bundle))
+    resources, drafts, pid, selections = split_input(read_json_file(args.bundle))
     settings = load_settings(args.config).ingest if args.config else IngestSettings()
     result = build_context(
         resources,
-        now=_now(args.now),
+        now=parse_now(args.now),
         settings=settings,
         patient_id=args.patient or pid,
         draft_orders=drafts,

@@ -29,6 +29,7 @@ from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
+from cds_service.commands._inputs import read_json_file
 from cds_service.errors import UserError
 from cds_service.hooks.timeshift import shift_times
 
@@ -106,12 +107,7 @@ def _codes(value: object, where: str) -> frozenset[str]:
 def read_manifest(folder: Path) -> list[Expectation]:
     """The manifest's samples; UserError when it is missing or malformed."""
     path = folder / "manifest.json"
-    try:
-        data = json.loads(path.read_text(encoding="utf-8"))
-    except OSError as exc:
-        raise UserError(f"cannot read {path}: {exc.strerror}") from None
-    except ValueError as exc:
-        raise UserError(f"{path} is not valid JSON: {exc}") from None
+    data = read_json_file(path)
     samples = data.get("samples") if isinstance(data, dict) else None
     if not isinstance(samples, list) or not samples:
         raise UserError(f"{path} lists no samples (expected a 'samples' array)")
@@ -140,12 +136,7 @@ def read_manifest(folder: Path) -> list[Expectation]:
 def _load_request(folder: Path, exp: Expectation) -> tuple[dict[str, Any] | None, str | None]:
     """(request body, None) or (None, why it is skipped); UserError for an unreadable file."""
     path = folder / exp.file
-    try:
-        body = json.loads(path.read_text(encoding="utf-8"))
-    except OSError as exc:
-        raise UserError(f"cannot read sample {path}: {exc.strerror}") from None
-    except ValueError as exc:
-        raise UserError(f"sample {path} is not valid JSON: {exc}") from None
+    body = read_json_file(path, "sample")
     if not isinstance(body, dict):
         raise UserError(f"sample {path} is not a JSON object")
     if isinstance(body.get("hook"), str):
