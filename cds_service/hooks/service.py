@@ -12,10 +12,8 @@ from __future__ import annotations
 
 import asyncio
 import functools
-import json
 import logging
 import re
-import secrets
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from datetime import datetime
@@ -24,14 +22,19 @@ from typing import Any
 import httpx
 from pydantic import ValidationError
 
+from cds_service import logs, ops
+from cds_service.clinical import engine
 from cds_service.clinical.findings import Finding, FindingCode
 from cds_service.config import Settings
 from cds_service.errors import UserError
+from cds_service.fhir import build_context
+from cds_service.hooks import snapshots
 from cds_service.hooks.cards import one_per_code, render_card
 from cds_service.hooks.fetch import fetch_all
 from cds_service.hooks.models import Card, HookRequest, HookResponse, Link, to_json
 from cds_service.hooks.prefetch import PrefetchState, check_prefetch
 from cds_service.hooks.registry import REQUIRED_KEYS, SERVICES, Service, fill, prefetch_templates
+from cds_service.store.cards import CardLogRow, add_cards
 
 _log = logging.getLogger(__name__)
 
@@ -211,8 +214,6 @@ async def gather_data(
 
 
 def _count_fetch_error(kind: str) -> None:
-    from cds_service import ops
-
     ops.count_fetch_error(kind)
 
 
@@ -249,9 +250,6 @@ async def evaluate(
     required; ``http`` + ``authenticator`` enable fetching from the client's FHIR server;
     ``store`` enables the card log and the trend snapshot; ``service_id`` None means the
     service answering the body's hook."""
-    from cds_service.clinical import engine
-    from cds_service.fhir import build_context
-
     call = parse_call(body, service_id)
     state = await gather_data(call, settings, http=http, caller=caller, authenticator=authenticator)
     _require(state)
@@ -322,25 +320,11 @@ class _PendingSnapshot:
 def _snapshot(
     settings: Settings, ctx: Any, findings: list[Finding], thresholds: Any, now: datetime
 ) -> _PendingSnapshot | None:
-    """The trend snapshot of this evaluation (stored with the card log), as
-    ``web.snapshots.save_snapshot`` would store it."""
-    from datetime import UTC, timedelta
-
-    from cds_service.store.schema import Snapshot
-    from cds_service.web import snapshots
-
+    """The trend snapshot of this evaluation, to be stored with the card log."""
     try:
         payload = snapshots.snapshot_payload(ctx, findings, thresholds)
-        ttl = settings.server.trend_link_ttl_hours
-        if ttl <= 0:
-            raise ValueError(f"ttl_hours must be positive, got {ttl}")
-        at = now.astimezone(UTC) if now.tzinfo else now.replace(tzinfo=UTC)
-        token = secrets.token_urlsafe(snapshots.TOKEN_BYTES)
-        row = Snapshot(
-            token_hash=snapshots.token_hash(token),
-            created_at=at,
-            expires_at=at + timedelta(hours=ttl),
-            payload=json.dumps(payload, separators=(",", ":"), allow_nan=False),
+        token, row = snapshots.new_snapshot(
+            payload, ttl_hours=settings.server.trend_link_ttl_hours, now=now
         )
     except Exception:  # the trend view is a convenience: never fail the cards for it
         _log.exception("trend snapshot not saved")
@@ -366,10 +350,6 @@ def _record(
     """Write the card log and the trend snapshot in one transaction, without waiting for the
     disk (``Store.log_session``). False, and logged, when it failed: the cards still reach the
     clinician (feedback on them is kept as for an unknown card)."""
-    from cds_service import logs
-    from cds_service.store.cards import CardLogRow, add_cards
-    from cds_service.web import snapshots
-
     patient_hash = logs.hash_patient_id(settings.logging.patient_id_salt, call.patient_id)
     rows = [
         CardLogRow(
@@ -396,7 +376,5 @@ def _record(
 
 
 def _count_cards(cards: list[Card]) -> None:
-    from cds_service import ops
-
     for card in cards:
         ops.count_card(card.source.topic.code if card.source.topic else "unknown")

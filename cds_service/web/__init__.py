@@ -1,5 +1,6 @@
 """Web pages of Tonicity: the integrator's workbench at ``/`` and the clinician's sodium trend
-pages at ``/trend/{token}`` (with their snapshots). matplotlib loads only when a chart is drawn.
+pages at ``/trend/{token}`` (snapshots are stored by ``hooks.snapshots``). matplotlib loads only
+when a chart is drawn.
 """
 
 from cds_service.web.routes import create_router

@@ -16,7 +16,8 @@ from fastapi.responses import FileResponse, HTMLResponse, JSONResponse, Response
 from markupsafe import Markup
 from pydantic import BaseModel, Field
 
-from cds_service.web import pages, samples, snapshots, trend
+from cds_service.hooks import snapshots
+from cds_service.web import pages, samples, trend
 from cds_service.web.markdown import render_markdown
 
 STATIC_DIR = Path(__file__).parent / "static"

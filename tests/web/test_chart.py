@@ -10,8 +10,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from cds_service.clinical.thresholds import load_thresholds
+from cds_service.hooks.snapshots import snapshot_payload
 from cds_service.web.chart import render_trend_svg, window
-from cds_service.web.snapshots import snapshot_payload
 from tests.web.conftest import make_context, make_findings
 
 SVG = "{http://www.w3.org/2000/svg}"

@@ -12,10 +12,8 @@ from hypothesis import strategies as st
 from sqlalchemy import select
 
 from cds_service.clinical.thresholds import load_thresholds
-from cds_service.store import Store
-from cds_service.store.schema import Snapshot
-from cds_service.web import snapshots
-from cds_service.web.snapshots import (
+from cds_service.hooks import snapshots
+from cds_service.hooks.snapshots import (
     SnapshotExpired,
     SnapshotNotFound,
     load_snapshot,
@@ -23,6 +21,8 @@ from cds_service.web.snapshots import (
     save_snapshot,
     snapshot_payload,
 )
+from cds_service.store import Store
+from cds_service.store.schema import Snapshot
 from tests.web.conftest import NOW, SODIUM, make_context, make_findings
 
 

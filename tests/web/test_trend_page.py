@@ -11,9 +11,9 @@ from datetime import UTC, datetime, timedelta
 from fastapi.testclient import TestClient
 
 from cds_service.clinical.thresholds import load_thresholds
+from cds_service.hooks.snapshots import save_snapshot, snapshot_payload
 from cds_service.store import Store
 from cds_service.web.pages import CAUTION
-from cds_service.web.snapshots import save_snapshot, snapshot_payload
 from tests.web.conftest import SODIUM, make_context, make_findings
 
 

@@ -157,25 +157,32 @@ def snapshot_payload(
 # --- store ------------------------------------------------------------------------------------
 
 
-def save_snapshot(
-    store: Store, payload: Mapping[str, Any], *, ttl_hours: float, now: datetime
-) -> str:
-    """Store ``payload`` until ``now + ttl_hours``; return the token for the link."""
+def new_snapshot(
+    payload: Mapping[str, Any], *, ttl_hours: float, now: datetime
+) -> tuple[str, Snapshot]:
+    """A fresh token and the row that stores ``payload`` under its hash until
+    ``now + ttl_hours``; the caller adds the row to a session."""
     if ttl_hours <= 0:
         raise ValueError(f"ttl_hours must be positive, got {ttl_hours}")
     now = _utc(now)
     token = secrets.token_urlsafe(TOKEN_BYTES)
-    body = json.dumps(payload, separators=(",", ":"), allow_nan=False)
+    row = Snapshot(
+        token_hash=token_hash(token),
+        created_at=now,
+        expires_at=now + timedelta(hours=ttl_hours),
+        payload=json.dumps(payload, separators=(",", ":"), allow_nan=False),
+    )
+    return token, row
+
+
+def save_snapshot(
+    store: Store, payload: Mapping[str, Any], *, ttl_hours: float, now: datetime
+) -> str:
+    """Store ``payload`` until ``now + ttl_hours``; return the token for the link."""
+    token, row = new_snapshot(payload, ttl_hours=ttl_hours, now=now)
     with store.session() as s:
-        purge_in(s, now)
-        s.add(
-            Snapshot(
-                token_hash=token_hash(token),
-                created_at=now,
-                expires_at=now + timedelta(hours=ttl_hours),
-                payload=body,
-            )
-        )
+        purge_in(s, row.created_at)
+        s.add(row)
     return token
 
 
