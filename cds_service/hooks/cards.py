@@ -8,7 +8,7 @@ sources, the missing tests and next steps, the cautions, and always the caution 
 from __future__ import annotations
 
 import uuid
-from collections.abc import Iterable
+from collections.abc import Iterable, Sequence
 from datetime import UTC, datetime
 from typing import Any
 
@@ -112,12 +112,26 @@ def _is_caution_line(text: str) -> bool:
     return text.lower().startswith("decision support for licensed clinicians")
 
 
-def _suggestions(finding: Finding, patient_id: str) -> list[Suggestion]:
+def suggested_tests(findings: Sequence[Finding]) -> list[tuple[str, ...]]:
+    """Per finding, the missing tests its card offers as orders: each test once per response,
+    on the finding that names the fewest missing tests (the one most specific to it; the first
+    of equals), so a clinician never drafts the same order twice from two cards. Every card's
+    detail still lists all that its finding misses."""
+    owner: dict[str, int] = {}
+    for i, f in enumerate(findings):
+        for analyte in f.missing:
+            j = owner.get(analyte)
+            if j is None or len(f.missing) < len(findings[j].missing):
+                owner[analyte] = i
+    return [tuple(a for a in f.missing if owner[a] == i) for i, f in enumerate(findings)]
+
+
+def _suggestions(finding: Finding, patient_id: str, tests: Iterable[str]) -> list[Suggestion]:
     from cds_service.fhir.builders import service_request
 
     reason = f"Hyponatremia work-up: {FINDING_DISPLAY[finding.code]}"
     out: list[Suggestion] = []
-    for analyte in finding.missing:
+    for analyte in dict.fromkeys(tests):
         name = _test_name(analyte)
         resource = service_request(Analyte(analyte), patient_id, reason)
         out.append(
@@ -163,8 +177,11 @@ def render_card(
     patient_id: str,
     unavailable: Iterable[str] = (),
     links: Iterable[Link] = (),
+    tests: Iterable[str] | None = None,
 ) -> Card:
-    suggestions = _suggestions(finding, patient_id)
+    """The card of ``finding``; ``tests`` are the missing tests it offers as orders (default:
+    all of ``finding.missing``; see :func:`suggested_tests` for a whole response)."""
+    suggestions = _suggestions(finding, patient_id, finding.missing if tests is None else tests)
     weighty = finding.urgency in (Urgency.WARNING, Urgency.CRITICAL)
     return Card(
         uuid=str(uuid.uuid4()),

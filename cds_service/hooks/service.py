@@ -29,7 +29,7 @@ from cds_service.config import Settings
 from cds_service.errors import UserError
 from cds_service.fhir import build_context
 from cds_service.hooks import snapshots
-from cds_service.hooks.cards import one_per_code, render_card
+from cds_service.hooks.cards import one_per_code, render_card, suggested_tests
 from cds_service.hooks.fetch import fetch_all
 from cds_service.hooks.models import Card, HookRequest, HookResponse, Link, to_json
 from cds_service.hooks.prefetch import PrefetchState, check_prefetch
@@ -275,6 +275,8 @@ async def evaluate(
     if store is not None and any(f.code in TREND_CODES for f in findings):
         snapshot = _snapshot(settings, ctx, findings, thresholds, now)
 
+    tests = suggested_tests(findings)
+
     def render(links: list[Link]) -> list[Card]:
         return [
             render_card(
@@ -283,8 +285,9 @@ async def evaluate(
                 patient_id=call.patient_id,
                 unavailable=unavailable,
                 links=links if f.code in TREND_CODES else (),
+                tests=offered,
             )
-            for f in findings
+            for f, offered in zip(findings, tests, strict=True)
         ]
 
     cards = render([snapshot.link] if snapshot else [])

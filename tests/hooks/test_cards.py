@@ -22,7 +22,13 @@ from cds_service.clinical.findings import (
     Value,
     ValueName,
 )
-from cds_service.hooks.cards import CAUTION, OVERRIDE_REASONS, one_per_code, render_card
+from cds_service.hooks.cards import (
+    CAUTION,
+    OVERRIDE_REASONS,
+    one_per_code,
+    render_card,
+    suggested_tests,
+)
 from cds_service.hooks.models import HookResponse, prune, to_json
 from tests.hooks.conformance import check_response, empties
 
@@ -140,3 +146,36 @@ def test_input_age_is_relative_to_now() -> None:
     )
     detail = render_card(finding, now=NOW, patient_id="p").detail or ""
     assert "Serum sodium: 128 mmol/L, taken 2026-03-14 04:00 UTC (5 h ago)" in detail
+
+
+_ORDERABLE = ["osmolality", "urine_osmolality", "urine_sodium", "urine_potassium", "tsh",
+              "cortisol"]
+
+
+@given(
+    missing=st.lists(
+        st.lists(st.sampled_from(_ORDERABLE), unique=True, max_size=4), min_size=1, max_size=5
+    )
+)
+def test_each_missing_test_is_offered_once_per_response(missing: list[list[str]]) -> None:
+    """Laws of suggested_tests: a test is offered on at most one card of a response, every
+    test some finding misses is offered somewhere, and only where that finding misses it
+    (common practice: one order button per test, so no order is drafted twice)."""
+    findings = [
+        Finding(FindingCode.HYPOTONIC, Urgency.INFO, f"finding {i}", missing=tuple(m))
+        for i, m in enumerate(missing)
+    ]
+    offered = suggested_tests(findings)
+    flat = [a for tests in offered for a in tests]
+    assert len(flat) == len(set(flat))
+    assert set(flat) == {a for m in missing for a in m}
+    assert all(set(t) <= set(f.missing) for t, f in zip(offered, findings, strict=True))
+
+
+def test_the_most_specific_card_offers_a_shared_test() -> None:
+    # The endocrine screen (TSH, cortisol) is more specific to TSH than the SIADH card that
+    # also misses urine potassium: the buttons go to the endocrine card.
+    siadh = Finding(FindingCode.SIADH_PATTERN, Urgency.INFO, "siadh",
+                    missing=("tsh", "cortisol", "urine_potassium"))
+    endo = Finding(FindingCode.ENDOCRINE_SCREEN, Urgency.INFO, "endo", missing=("tsh", "cortisol"))
+    assert suggested_tests([siadh, endo]) == [("urine_potassium",), ("tsh", "cortisol")]
