@@ -53,11 +53,11 @@ def check_source(file: str, where: str, source: object) -> str:
 def cite(source: str, from_memory: bool = False) -> str:
     """The printed reference of a ``source`` field, marked when the entry was written from
     memory."""
-    text = (
-        "Common practice (no single published source)"
-        if source == COMMON_PRACTICE
-        else citations()[source]
-    )
+    if source == COMMON_PRACTICE:
+        # No text to check against: "from memory" can only mean the figure was recalled.
+        detail = "; the figure is from memory" if from_memory else ""
+        return f"Common practice (no single published source{detail})"
+    text = citations()[source]
     if from_memory and not text.endswith("(from memory)"):
         text += " (from memory)"
     return text

@@ -114,3 +114,13 @@ def test_malformed_entries_are_rejected_on_load() -> None:
     for bad in ({"tonicity": "isotonic"}, {"sodium": -1}, {"osmolarity": "high"}):
         with pytest.raises(DataFileError):
             _load("bad", {**good_fluid, **bad})
+
+
+def test_common_practice_citation_reads_plainly() -> None:
+    # A fact of the trade has no text to check; a recalled figure is said so in one phrase.
+    from cds_service.clinical._data import cite
+
+    assert cite("common practice") == "Common practice (no single published source)"
+    assert cite("common practice", from_memory=True) == (
+        "Common practice (no single published source; the figure is from memory)"
+    )
