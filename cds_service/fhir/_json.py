@@ -80,10 +80,5 @@ def concept_text(concept: Any) -> str:
     return ""
 
 
-def ref_key(resource: dict[str, Any]) -> str:
-    """'ResourceType/id' for a resource (id may be empty)."""
-    return f"{text(resource.get('resourceType')) or '?'}/{text(resource.get('id')) or ''}"
-
-
 def reference(value: Any) -> str | None:
     return text(obj(value).get("reference"))
