@@ -19,7 +19,6 @@ from cds_service.clinical.thresholds import Thresholds
 V = ValueName
 
 
-
 @dataclass(frozen=True, slots=True)
 class Chemistry:
     """The current chemistry of a hyponatremic patient, computed once per evaluation."""
@@ -98,10 +97,10 @@ def chemistry(ctx: ClinicalContext, th: Thresholds) -> Chemistry | None:
         sodium=sodium,
         severity=sev,
         acuity=acuity(ctx.series.get(Analyte.SODIUM, (sodium,)), ctx.now, th),
-        call=classify(None if osm is None else osm.value,
-                      None if glucose is None else glucose.value, th),
+        call=classify(
+            None if osm is None else osm.value, None if glucose is None else glucose.value, th
+        ),
         calculated_osmolality=calculated,
         ctx=ctx,
         th=th,
     )
-

@@ -197,21 +197,28 @@ def correction_finding(ctx: ClinicalContext, th: Thresholds) -> Finding | None:
             )
     values.append(Value(ValueName.CORRECTION_LIMIT_24H, round(limits.limit_24h, 1)))
     if limits.high_risk_reasons:
-        details.append("High risk of osmotic demyelination: " + "; ".join(limits.high_risk_reasons)
-                       + f", so the limit is {num(limits.limit_24h)} mmol/L per 24 h.")
+        details.append(
+            "High risk of osmotic demyelination: "
+            + "; ".join(limits.high_risk_reasons)
+            + f", so the limit is {num(limits.limit_24h)} mmol/L per 24 h."
+        )
     rises = [r for r in (status.rise_24h, status.rise_48h) if r is not None]
     points = [p for rise in rises for p in (rise.start, rise.end)]
     return Finding(
         code=FindingCode.CORRECTION_RATE,
         urgency=Urgency.CRITICAL,
-        summary=(f"Sodium rose {num(worst.amount)} mmol/L within {hours} h "
-                 f"({num(worst.start.value)} to {num(worst.end.value)}), above the "
-                 f"{num(limit)} mmol/L limit"),
+        summary=(
+            f"Sodium rose {num(worst.amount)} mmol/L within {hours} h "
+            f"({num(worst.start.value)} to {num(worst.end.value)}), above the "
+            f"{num(limit)} mmol/L limit"
+        ),
         details=tuple(details),
         values=tuple(values),
         inputs=tuple(used(r) for r in dict.fromkeys(points)),
-        formulas=(f"Rise = {num(worst.end.value)} − {num(worst.start.value)} = "
-                  f"{num(worst.amount)} mmol/L within {hours} h",),
+        formulas=(
+            f"Rise = {num(worst.end.value)} − {num(worst.start.value)} = "
+            f"{num(worst.amount)} mmol/L within {hours} h",
+        ),
         sources=(th.cite("correction_limit_24h"), cite("spasovski2014", True)),
         next_steps=(
             "Stop sodium-raising treatment (hypertonic saline, vaptans) and seek expert advice.",

@@ -103,8 +103,11 @@ def drug_classes() -> tuple[DrugClass, ...]:
 
 
 @cache
-def _indexes() -> tuple[dict[str, tuple[DrugClass, str]], dict[str, tuple[DrugClass, str]],
-                        list[tuple[re.Pattern[str], DrugClass, str]]]:
+def _indexes() -> tuple[
+    dict[str, tuple[DrugClass, str]],
+    dict[str, tuple[DrugClass, str]],
+    list[tuple[re.Pattern[str], DrugClass, str]],
+]:
     by_name: dict[str, tuple[DrugClass, str]] = {}
     by_code: dict[str, tuple[DrugClass, str]] = {}
     patterns: list[tuple[re.Pattern[str], DrugClass, str]] = []

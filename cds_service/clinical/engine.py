@@ -30,10 +30,14 @@ def _out_of_scope(ctx: ClinicalContext, th: Thresholds) -> Finding | None:
     return Finding(
         code=FindingCode.OUT_OF_SCOPE,
         urgency=Urgency.INFO,
-        summary=(f"Patient is {num(age, 0)} years old: Tonicity covers adults "
-                 f"({num(th.adult_age_years, 0)} and over) and made no calculation"),
-        details=("Adult formulas, thresholds and body-water fractions do not apply to "
-                 "children; use a paediatric protocol.",),
+        summary=(
+            f"Patient is {num(age, 0)} years old: Tonicity covers adults "
+            f"({num(th.adult_age_years, 0)} and over) and made no calculation"
+        ),
+        details=(
+            "Adult formulas, thresholds and body-water fractions do not apply to "
+            "children; use a paediatric protocol.",
+        ),
         sources=(th.cite("adult_age_years"),),
         cautions=(CAUTION,),
     )
@@ -59,8 +63,14 @@ def _implausible(rejected: Iterable[RejectedResult]) -> Finding | None:
         summary=shorten(f"{lead}: {first.reason}", 139),
         details=tuple(f"- {_label(r)} {r.raw} ({r.source_id}): {r.reason}" for r in items),
         inputs=tuple(
-            InputUsed(label=_label(r), value=r.raw, unit="", time=r.time,
-                      source_id=r.source_id, note=r.reason)
+            InputUsed(
+                label=_label(r),
+                value=r.raw,
+                unit="",
+                time=r.time,
+                source_id=r.source_id,
+                note=r.reason,
+            )
             for r in items
         ),
         next_steps=("Check the result with the laboratory and repeat the test if needed.",),

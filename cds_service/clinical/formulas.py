@@ -115,9 +115,7 @@ def electrolyte_free_water_clearance(
     return urine_volume_l * (1.0 - ratio)
 
 
-def plasma_water_percent(
-    total_protein_g_dl: float, lipids_g_dl: float, th: Thresholds
-) -> float:
+def plasma_water_percent(total_protein_g_dl: float, lipids_g_dl: float, th: Thresholds) -> float:
     """Waugh 1969: plasma water % = 99.1 − 1.03 × lipids − 0.73 × protein (g/dL)."""
     return (
         th.waugh_intercept

@@ -70,8 +70,7 @@ def volume_hint_lines(ctx: ClinicalContext) -> tuple[str, ...]:
     hints = volume_hints(ctx)
     if not hints:
         return ("Volume status: nothing in the record hints either way; assess at the bedside.",)
-    return ("Hints for the bedside volume assessment (not a verdict):",
-            *(f"- {h}" for h in hints))
+    return ("Hints for the bedside volume assessment (not a verdict):", *(f"- {h}" for h in hints))
 
 
 def _value(ctx: ClinicalContext, analyte: Analyte) -> float | None:
@@ -96,17 +95,17 @@ def _criterion_5(ctx: ClinicalContext, th: Thresholds) -> Criterion:
     if tsh is not None and tsh > th.tsh_upper_normal:
         return Criterion(name, Status.NOT_MET, f"TSH {num(tsh, 2)} m[IU]/L is raised")
     if tsh is None or cortisol is None:
-        missing = " and ".join(
-            n for n, v in (("TSH", tsh), ("cortisol", cortisol)) if v is None
-        )
+        missing = " and ".join(n for n, v in (("TSH", tsh), ("cortisol", cortisol)) if v is None)
         return Criterion(name, Status.UNKNOWN, f"{missing} not measured")
     if cortisol <= th.cortisol_adrenal_unlikely_above:
         return Criterion(
-            name, Status.UNKNOWN,
+            name,
+            Status.UNKNOWN,
             f"cortisol {num(cortisol)} ug/dL does not exclude adrenal insufficiency",
         )
     return Criterion(
-        name, Status.MET,
+        name,
+        Status.MET,
         f"TSH {num(tsh, 2)} m[IU]/L, cortisol {num(cortisol)} ug/dL; "
         "pituitary as far as these show",
     )
@@ -127,22 +126,26 @@ def siadh_essential(ctx: ClinicalContext, th: Thresholds) -> tuple[Criterion, ..
     hints = [h for h in volume_hints(ctx) if "active" not in h]
     return (
         threshold(
-            f"effective osmolality < {num(th.tonicity_hypotonic_below)} mOsm/kg", osm,
+            f"effective osmolality < {num(th.tonicity_hypotonic_below)} mOsm/kg",
+            osm,
             osm is not None and osm < th.tonicity_hypotonic_below,
             f"measured {num(osm or 0)} mOsm/kg",
         ),
         threshold(
-            f"urine osmolality > {num(th.urine_osmolality_dilute_below)} mOsm/kg", uosm,
+            f"urine osmolality > {num(th.urine_osmolality_dilute_below)} mOsm/kg",
+            uosm,
             uosm is not None and uosm > th.urine_osmolality_dilute_below,
             f"{num(uosm or 0)} mOsm/kg",
         ),
         Criterion(
-            "clinical euvolemia", Status.UNKNOWN,
+            "clinical euvolemia",
+            Status.UNKNOWN,
             "bedside assessment" + (f"; record hints: {'; '.join(hints)}" if hints else ""),
         ),
         threshold(
             f"urine sodium > {num(th.urine_sodium_low_at_most)} mmol/L with normal salt and "
-            "water intake", una,
+            "water intake",
+            una,
             una is not None and una > th.urine_sodium_low_at_most,
             f"{num(una or 0)} mmol/L",
         ),
@@ -150,7 +153,8 @@ def siadh_essential(ctx: ClinicalContext, th: Thresholds) -> tuple[Criterion, ..
         Criterion(
             "no recent diuretic use",
             Status.NOT_MET if diuretics else Status.MET,
-            ", ".join(m.name for m in diuretics) + " active" if diuretics
+            ", ".join(m.name for m in diuretics) + " active"
+            if diuretics
             else "no diuretic in the medication record",
         ),
     )
@@ -162,13 +166,23 @@ def siadh_supplemental(ctx: ClinicalContext, th: Thresholds) -> tuple[Criterion,
     uric = _value(ctx, Analyte.URIC_ACID)
     if uric is not None:
         ok = uric < th.siadh_uric_acid_below
-        out.append(Criterion(f"serum uric acid < {num(th.siadh_uric_acid_below)} mg/dL",
-                             Status.MET if ok else Status.NOT_MET, f"{num(uric)} mg/dL"))
+        out.append(
+            Criterion(
+                f"serum uric acid < {num(th.siadh_uric_acid_below)} mg/dL",
+                Status.MET if ok else Status.NOT_MET,
+                f"{num(uric)} mg/dL",
+            )
+        )
     bun = _value(ctx, Analyte.UREA_NITROGEN)
     if bun is not None:
         ok = bun < th.siadh_urea_nitrogen_below
-        out.append(Criterion(f"urea nitrogen < {num(th.siadh_urea_nitrogen_below)} mg/dL",
-                             Status.MET if ok else Status.NOT_MET, f"{num(bun)} mg/dL"))
+        out.append(
+            Criterion(
+                f"urea nitrogen < {num(th.siadh_urea_nitrogen_below)} mg/dL",
+                Status.MET if ok else Status.NOT_MET,
+                f"{num(bun)} mg/dL",
+            )
+        )
     creat, ucreat = _value(ctx, Analyte.CREATININE), _value(ctx, Analyte.URINE_CREATININE)
     for label, urine, serum, limit in (
         ("uric acid", Analyte.URINE_URIC_ACID, Analyte.URIC_ACID, th.siadh_fe_urate_above),
@@ -178,8 +192,13 @@ def siadh_supplemental(ctx: ClinicalContext, th: Thresholds) -> tuple[Criterion,
         if None in (u, s, creat, ucreat) or not s or not ucreat:
             continue
         fe = formulas.fractional_excretion(u, s, ucreat, creat)  # type: ignore[arg-type]
-        out.append(Criterion(f"fractional excretion of {label} > {num(limit)} %",
-                             Status.MET if fe > limit else Status.NOT_MET, f"{num(fe)} %"))
+        out.append(
+            Criterion(
+                f"fractional excretion of {label} > {num(limit)} %",
+                Status.MET if fe > limit else Status.NOT_MET,
+                f"{num(fe)} %",
+            )
+        )
     return tuple(out)
 
 

@@ -96,9 +96,7 @@ def infusates() -> Mapping[str, Infusate]:
 def _alias_patterns() -> tuple[tuple[re.Pattern[str], Infusate], ...]:
     pairs = [(a, inf) for inf in infusates().values() for a in inf.aliases]
     pairs.sort(key=lambda p: -len(p[0]))  # the most specific alias wins
-    return tuple(
-        (re.compile(rf"(?<![\w.]){re.escape(a)}(?![\w.])"), inf) for a, inf in pairs
-    )
+    return tuple((re.compile(rf"(?<![\w.]){re.escape(a)}(?![\w.])"), inf) for a, inf in pairs)
 
 
 @dataclass(frozen=True, slots=True)
@@ -126,8 +124,13 @@ def _from_table(draft: DraftFluid, inf: Infusate, basis: str, th: Thresholds) ->
     label = inf.label if not extra_k else f"{inf.label} + {extra_k:g} mmol/L potassium"
     k = inf.potassium + extra_k
     return ResolvedFluid(
-        draft, label, inf.sodium, k, inf.osmolarity + 2 * extra_k,
-        fluid_tonicity(inf.sodium + k, th), basis,
+        draft,
+        label,
+        inf.sodium,
+        k,
+        inf.osmolarity + 2 * extra_k,
+        fluid_tonicity(inf.sodium + k, th),
+        basis,
     )
 
 
@@ -145,8 +148,13 @@ def resolve(draft: DraftFluid, th: Thresholds) -> ResolvedFluid | None:
         if k:
             parts.append(f"{k:g} mmol/L potassium")
         return ResolvedFluid(
-            draft, " + ".join(parts) or draft.display, na, k, 2 * (na + k) + dextrose_mosm,
-            fluid_tonicity(na + k, th), "stated composition",
+            draft,
+            " + ".join(parts) or draft.display,
+            na,
+            k,
+            2 * (na + k) + dextrose_mosm,
+            fluid_tonicity(na + k, th),
+            "stated composition",
         )
     lowered = draft.display.lower()
     for pattern, inf in _alias_patterns():

@@ -44,8 +44,9 @@ class OrderContext:
     def effect(self, fluid: ResolvedFluid) -> InfusionEffect | None:
         if self.sodium is None or self.water is None:
             return None
-        return infusion_effect(fluid, self.sodium.value, self.water.litres, self.limits.limit_24h,
-                               self.risen_24h)
+        return infusion_effect(
+            fluid, self.sodium.value, self.water.litres, self.limits.limit_24h, self.risen_24h
+        )
 
     def arithmetic(self, fluid: ResolvedFluid) -> tuple[list[Value], list[str], list[str]]:
         """(values, formula lines, detail lines) of a fluid's predicted effect."""
@@ -54,8 +55,10 @@ class OrderContext:
             return [], [], [f"The change per litre needs a recorded {why}; not computed."]
         effect = self.effect(fluid)
         assert effect is not None
-        values = [value(V.TOTAL_BODY_WATER, effect.tbw),
-                  value(V.DELTA_SODIUM_PER_LITER, effect.delta_per_liter)]
+        values = [
+            value(V.TOTAL_BODY_WATER, effect.tbw),
+            value(V.DELTA_SODIUM_PER_LITER, effect.delta_per_liter),
+        ]
         return values, [*self.water.lines(), *effect.lines()], list(self.water.notes())
 
     def inputs(self) -> tuple[InputUsed, ...]:
@@ -90,19 +93,25 @@ def hypotonic_fluid_finding(o: OrderContext, fluids: list[ResolvedFluid]) -> Fin
     return Finding(
         code=FindingCode.HYPOTONIC_FLUID_ORDER,
         urgency=Urgency.WARNING,
-        summary=(f"{shorten(first.label, 45)} drafted while sodium is {_na(o)}: a hypotonic "
-                 "fluid lowers sodium further"),
+        summary=(
+            f"{shorten(first.label, 45)} drafted while sodium is {_na(o)}: a hypotonic "
+            "fluid lowers sodium further"
+        ),
         details=(
-            *(f"- {f.label} ({f.draft.resource_id}): Na + K {num(f.sodium_plus_potassium)} "
-              "mmol/L, hypotonic" for f in hypo),
+            *(
+                f"- {f.label} ({f.draft.resource_id}): Na + K {num(f.sodium_plus_potassium)} "
+                "mmol/L, hypotonic"
+                for f in hypo
+            ),
             *notes,
         ),
         values=(*o.sodium_values(), *values),
         inputs=o.inputs(),
         formulas=tuple(formula_lines),
         sources=unique([*o.sources(), o.th.cite("infusate_hypotonic_below")]),
-        next_steps=("Remove the draft; if fluid is needed choose an isotonic one and recheck "
-                    "sodium.",),
+        next_steps=(
+            "Remove the draft; if fluid is needed choose an isotonic one and recheck sodium.",
+        ),
         cautions=(CAUTION,),
         remove_draft=first.draft.resource_id,
     )
@@ -117,24 +126,32 @@ def isotonic_fluid_finding(o: OrderContext, fluids: list[ResolvedFluid]) -> Find
     uosm = o.ctx.current.get(Analyte.URINE_OSMOLALITY)
     osm = num(first.osmolarity, 0)
     if uosm is None:
-        urine = (f"Urine osmolality not known: if it exceeds this fluid's {osm} mOsm/L "
-                 "(as in SIADH), the salt leaves in less water and sodium can fall.")
+        urine = (
+            f"Urine osmolality not known: if it exceeds this fluid's {osm} mOsm/L "
+            "(as in SIADH), the salt leaves in less water and sodium can fall."
+        )
     elif uosm.value > first.osmolarity:
-        urine = (f"Urine osmolality {num(uosm.value, 0)} mOsm/kg exceeds this fluid's {osm} "
-                 "mOsm/L: the salt leaves in less water and sodium can fall (as in SIADH).")
+        urine = (
+            f"Urine osmolality {num(uosm.value, 0)} mOsm/kg exceeds this fluid's {osm} "
+            "mOsm/L: the salt leaves in less water and sodium can fall (as in SIADH)."
+        )
     else:
-        urine = (f"Urine osmolality {num(uosm.value, 0)} mOsm/kg is below this fluid's {osm} "
-                 "mOsm/L: net water excretion, sodium should rise.")
+        urine = (
+            f"Urine osmolality {num(uosm.value, 0)} mOsm/kg is below this fluid's {osm} "
+            "mOsm/L: net water excretion, sodium should rise."
+        )
     effect = o.effect(first)
     per_l = f"; expected {signed(effect.delta_per_liter)} mmol/L per litre" if effect else ""
     return Finding(
         code=FindingCode.ISOTONIC_FLUID_ORDER,
         urgency=Urgency.INFO,
-        summary=shorten(f"{shorten(first.label, 40)} drafted while sodium is {_na(o)}{per_l}",
-                        139),
+        summary=shorten(f"{shorten(first.label, 40)} drafted while sodium is {_na(o)}{per_l}", 139),
         details=(urine, *notes),
-        values=(*o.sodium_values(), *values,
-                *([value(V.URINE_OSMOLALITY, uosm.value)] if uosm else [])),
+        values=(
+            *o.sodium_values(),
+            *values,
+            *([value(V.URINE_OSMOLALITY, uosm.value)] if uosm else []),
+        ),
         inputs=o.inputs() + ((used(uosm),) if uosm else ()),
         formulas=tuple(formula_lines),
         sources=unique(o.sources()),
@@ -154,8 +171,11 @@ def hypertonic_saline_finding(o: OrderContext, fluids: list[ResolvedFluid]) -> F
     limit = num(o.limits.limit_24h)
     summary = f"{shorten(first.label, 30)} drafted (sodium {_na(o)})"
     details = list(notes)
-    cautions = [CAUTION, "The formula ignores urine and other losses: the real rise can be "
-                "larger, above all once a reversible cause of water retention is removed."]
+    cautions = [
+        CAUTION,
+        "The formula ignores urine and other losses: the real rise can be "
+        "larger, above all once a reversible cause of water retention is removed.",
+    ]
     if effect is not None:
         values.append(value(V.CORRECTION_LIMIT_24H, o.limits.limit_24h))
         summary += f": {signed(effect.delta_per_liter)} mmol/L per litre"
@@ -164,12 +184,15 @@ def hypertonic_saline_finding(o: OrderContext, fluids: list[ResolvedFluid]) -> F
             if effect.headroom_24h == 0:
                 summary += f"; the {limit} mmol/L 24-h limit is already used"
             else:
-                summary += (f", {num(effect.max_volume_24h, 2)} L reaches the {limit} mmol/L "
-                            "24-h limit")
+                summary += (
+                    f", {num(effect.max_volume_24h, 2)} L reaches the {limit} mmol/L 24-h limit"
+                )
         rise = effect.projected_rise_24h
         if rise is not None and rise > o.limits.limit_24h:
-            cautions.append(f"As drafted the projected 24-h rise is {signed(rise)} mmol/L, above "
-                            f"the {limit} mmol/L limit.")
+            cautions.append(
+                f"As drafted the projected 24-h rise is {signed(rise)} mmol/L, above "
+                f"the {limit} mmol/L limit."
+            )
     if o.limits.high_risk_reasons:
         details.append("High-risk limit applies: " + "; ".join(o.limits.high_risk_reasons) + ".")
     details.append(
@@ -186,16 +209,19 @@ def hypertonic_saline_finding(o: OrderContext, fluids: list[ResolvedFluid]) -> F
         values=(*o.sodium_values(), *values),
         inputs=o.inputs(),
         formulas=tuple(formula_lines),
-        sources=unique([*o.sources(), th.cite("correction_limit_24h"),
-                        th.cite("bolus_hypertonic_volume")]),
+        sources=unique(
+            [*o.sources(), th.cite("correction_limit_24h"), th.cite("bolus_hypertonic_volume")]
+        ),
         next_steps=("Check sodium every few hours while it runs, per local protocol.",),
         cautions=tuple(cautions),
     )
 
 
 def _drug_lines(matches: list[DrugMatch]) -> tuple[str, ...]:
-    return tuple(f"- **{m.name}** ({m.drug_class.label}; {m.source_id}): "
-                 f"{m.drug_class.mechanism}" for m in matches)
+    return tuple(
+        f"- **{m.name}** ({m.drug_class.label}; {m.source_id}): {m.drug_class.mechanism}"
+        for m in matches
+    )
 
 
 def drug_order_finding(o: OrderContext) -> Finding | None:
@@ -206,8 +232,11 @@ def drug_order_finding(o: OrderContext) -> Finding | None:
     return Finding(
         code=FindingCode.DRUG_ORDER_RISK,
         urgency=Urgency.WARNING,
-        summary=shorten(f"{first.name.capitalize()} drafted while sodium is {_na(o)}: "
-                        f"{first.drug_class.label}, associated with hyponatremia", 139),
+        summary=shorten(
+            f"{first.name.capitalize()} drafted while sodium is {_na(o)}: "
+            f"{first.drug_class.label}, associated with hyponatremia",
+            139,
+        ),
         details=_drug_lines(matches),
         values=tuple(o.sodium_values()),
         inputs=o.sodium_input(),
@@ -237,14 +266,17 @@ def vaptan_finding(o: OrderContext) -> Finding | None:
     return Finding(
         code=FindingCode.VAPTAN_ORDER,
         urgency=Urgency.WARNING,
-        summary=shorten(f"{first.name.capitalize()} drafted (sodium {_na(o)}): risk of "
-                        "overcorrection; frequent sodium checks, no fluid restriction at first",
-                        139),
+        summary=shorten(
+            f"{first.name.capitalize()} drafted (sodium {_na(o)}): risk of "
+            "overcorrection; frequent sodium checks, no fluid restriction at first",
+            139,
+        ),
         details=tuple(details),
         values=tuple(values),
         inputs=o.sodium_input(),
-        sources=unique([first.drug_class.citation, o.th.cite("correction_limit_24h"),
-                        cite("samsca_label")]),
+        sources=unique(
+            [first.drug_class.citation, o.th.cite("correction_limit_24h"), cite("samsca_label")]
+        ),
         next_steps=("Plan sodium checks and a limit before the first dose.",),
         cautions=tuple(cautions),
     )
@@ -252,8 +284,14 @@ def vaptan_finding(o: OrderContext) -> Finding | None:
 
 def order_findings(ctx: ClinicalContext, th: Thresholds) -> list[Finding]:
     """Findings about the selected draft orders."""
-    o = OrderContext(ctx, th, ctx.current.get(Analyte.SODIUM), body_water(ctx, th),
-                     applicable_limits(ctx, th), risen_last_24h(ctx))
+    o = OrderContext(
+        ctx,
+        th,
+        ctx.current.get(Analyte.SODIUM),
+        body_water(ctx, th),
+        applicable_limits(ctx, th),
+        risen_last_24h(ctx),
+    )
     fluids = _selected_fluids(ctx, th)
     found = [
         hypotonic_fluid_finding(o, fluids),

@@ -105,12 +105,20 @@ class Thresholds:
         _ordered(self, "furst_ratio_low", "furst_ratio_high")
         _ordered(self, "infusate_hypotonic_below", "infusate_hypertonic_above")
         _ordered(self, "solute_load_low", "solute_load_typical")
-        for name in ("tbw_fraction_adult_male", "tbw_fraction_adult_female",
-                     "tbw_fraction_elderly_male", "tbw_fraction_elderly_female"):
+        for name in (
+            "tbw_fraction_adult_male",
+            "tbw_fraction_adult_female",
+            "tbw_fraction_elderly_male",
+            "tbw_fraction_elderly_female",
+        ):
             if not 0 < getattr(self, name) <= 1:
                 raise ValueError(f"threshold {name} must lie in (0, 1]")
-        for name in ("glucose_mg_dl_per_mmol_l", "urea_nitrogen_mg_dl_per_mmol_l",
-                     "urine_osmolality_minimal", "correction_limit_24h_high_risk"):
+        for name in (
+            "glucose_mg_dl_per_mmol_l",
+            "urea_nitrogen_mg_dl_per_mmol_l",
+            "urine_osmolality_minimal",
+            "correction_limit_24h_high_risk",
+        ):
             if getattr(self, name) <= 0:
                 raise ValueError(f"threshold {name} must be positive")
 

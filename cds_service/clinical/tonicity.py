@@ -44,8 +44,9 @@ def _sodium_lines(c: Chemistry) -> list[str]:
         f"Acuity: {_ACUITY_TEXT[c.acuity]}.",
     ]
     if c.sodium.direct_ise:
-        lines.append("Sodium measured by direct ISE on whole blood (not affected by lipids or "
-                     "proteins).")
+        lines.append(
+            "Sodium measured by direct ISE on whole blood (not affected by lipids or proteins)."
+        )
     if c.sodium.preliminary:
         lines.append("The sodium result is preliminary.")
     return lines
@@ -102,13 +103,21 @@ def _unknown(c: Chemistry, head: str) -> _Part:
     return _Part(
         FindingCode.TONICITY_UNKNOWN,
         f"{head}, no measured osmolality{provisional}",
-        details=["No measured serum osmolality in the window: tonicity cannot be classified."
-                 + (" The calculated value misses unmeasured osmoles and pseudohyponatremia."
-                    if calc else "")],
-        missing=c.missing(Analyte.OSMOLALITY, Analyte.URINE_OSMOLALITY, Analyte.URINE_SODIUM,
-                          Analyte.GLUCOSE),
-        next_steps=["Measure serum osmolality, with urine osmolality and urine sodium from the "
-                    "same time, before treatment where possible."],
+        details=[
+            "No measured serum osmolality in the window: tonicity cannot be classified."
+            + (
+                " The calculated value misses unmeasured osmoles and pseudohyponatremia."
+                if calc
+                else ""
+            )
+        ],
+        missing=c.missing(
+            Analyte.OSMOLALITY, Analyte.URINE_OSMOLALITY, Analyte.URINE_SODIUM, Analyte.GLUCOSE
+        ),
+        next_steps=[
+            "Measure serum osmolality, with urine osmolality and urine sodium from the "
+            "same time, before treatment where possible."
+        ],
     )
 
 
@@ -119,8 +128,9 @@ def _hypotonic(c: Chemistry, head: str) -> _Part:
         "hypotonic hyponatremia",
         details=list(volume_hint_lines(c.ctx)),
         missing=c.missing(Analyte.URINE_OSMOLALITY, Analyte.URINE_SODIUM),
-        next_steps=["Interpret urine osmolality, then urine sodium (2014 European guideline "
-                    "algorithm)."],
+        next_steps=[
+            "Interpret urine osmolality, then urine sodium (2014 European guideline algorithm)."
+        ],
     )
     hint = reset_osmostat_hint(c.ctx, c.th)
     if hint:
@@ -139,8 +149,10 @@ def _isotonic(c: Chemistry, head: str) -> _Part:
         details=[*_pseudo_lines(c), *_osmotic_agents(c)],
         sources=[c.th.cite("waugh_intercept")],
         missing=c.missing(Analyte.TRIGLYCERIDES, Analyte.TOTAL_PROTEIN),
-        next_steps=["Re-measure sodium by direct ISE (blood-gas analyser); it is not affected "
-                    "by lipids or proteins."],
+        next_steps=[
+            "Re-measure sodium by direct ISE (blood-gas analyser); it is not affected "
+            "by lipids or proteins."
+        ],
         inputs=c.inputs(Analyte.TRIGLYCERIDES, Analyte.TOTAL_PROTEIN)[1:],
     )
 
@@ -148,23 +160,32 @@ def _isotonic(c: Chemistry, head: str) -> _Part:
 def _hypertonic(c: Chemistry, head: str) -> _Part:
     values, lines = _corrected(c) if c.call.hyperglycemia else ([], [])
     if values:
-        summary = (f"Sodium {num(c.sodium.value)} mmol/L with glucose "
-                   f"{num(c.val(Analyte.GLUCOSE) or 0, 0)} mg/dL: corrected sodium "
-                   f"{values[0].value} (Katz) to {values[1].value} (Hillier) mmol/L")
+        summary = (
+            f"Sodium {num(c.sodium.value)} mmol/L with glucose "
+            f"{num(c.val(Analyte.GLUCOSE) or 0, 0)} mg/dL: corrected sodium "
+            f"{values[0].value} (Katz) to {values[1].value} (Hillier) mmol/L"
+        )
     else:
-        summary = (f"{head}, measured osmolality {num(c.measured_osmolality or 0, 0)} "
-                   "mOsm/kg: hypertonic, look for other osmoles")
+        summary = (
+            f"{head}, measured osmolality {num(c.measured_osmolality or 0, 0)} "
+            "mOsm/kg: hypertonic, look for other osmoles"
+        )
     part = _Part(FindingCode.HYPERTONIC, summary, values=values, formulas=lines)
     if values:
-        part.details.append("Hyperglycemia draws water out of cells (translocational "
-                            "hyponatremia); judge sodium by the corrected values.")
+        part.details.append(
+            "Hyperglycemia draws water out of cells (translocational "
+            "hyponatremia); judge sodium by the corrected values."
+        )
         part.sources += [c.th.cite("katz_factor"), c.th.cite("hillier_factor")]
-    part.details.append("Other osmoles to consider where recorded: mannitol, sorbitol, glycine "
-                        "irrigation, radiocontrast.")
+    part.details.append(
+        "Other osmoles to consider where recorded: mannitol, sorbitol, glycine "
+        "irrigation, radiocontrast."
+    )
     part.details += _osmotic_agents(c)
     if c.call.provisional:
-        part.details.append("No measured osmolality: the class rests on the glucose value and "
-                            "is provisional.")
+        part.details.append(
+            "No measured osmolality: the class rests on the glucose value and is provisional."
+        )
         part.missing = c.missing(Analyte.OSMOLALITY)
     return part
 
@@ -183,16 +204,20 @@ def tonicity_finding(c: Chemistry) -> Finding:
     part = _BUILDERS[c.call.tonicity](c, head)
     cautions = [CAUTION]
     if c.severity is Severity.PROFOUND:
-        cautions.append("Profound hyponatremia: assess now for severe symptoms (vomiting, "
-                        "seizures, reduced consciousness), which call for urgent treatment.")
+        cautions.append(
+            "Profound hyponatremia: assess now for severe symptoms (vomiting, "
+            "seizures, reduced consciousness), which call for urgent treatment."
+        )
     return Finding(
         code=part.code,
         urgency=Urgency.CRITICAL if c.severity is Severity.PROFOUND else Urgency.INFO,
         summary=part.summary,
         details=(*_sodium_lines(c), *part.details),
         values=(*c.sodium_values(), *c.osmolality_values(), *part.values),
-        inputs=(*c.inputs(Analyte.OSMOLALITY, Analyte.GLUCOSE, Analyte.UREA_NITROGEN),
-                *part.inputs),
+        inputs=(
+            *c.inputs(Analyte.OSMOLALITY, Analyte.GLUCOSE, Analyte.UREA_NITROGEN),
+            *part.inputs,
+        ),
         formulas=(*c.calculated_formula(), *part.formulas),
         sources=unique([*_common_sources(c), *part.sources]),
         missing=part.missing,
@@ -209,21 +234,30 @@ def _pseudo_lines(c: Chemistry) -> list[str]:
         lines.append("- triglycerides and total protein not measured")
     if tg is not None:
         high = tg > th.triglycerides_clue_above
-        lines.append(f"- triglycerides {num(tg, 0)} mg/dL" + (
-            f" (above {num(th.triglycerides_clue_above, 0)}: a clue)" if high else ""))
+        lines.append(
+            f"- triglycerides {num(tg, 0)} mg/dL"
+            + (f" (above {num(th.triglycerides_clue_above, 0)}: a clue)" if high else "")
+        )
     if tp is not None:
         high = tp > th.total_protein_clue_above
-        lines.append(f"- total protein {num(tp)} g/dL" + (
-            f" (above {num(th.total_protein_clue_above)}: paraprotein clue)" if high else ""))
+        lines.append(
+            f"- total protein {num(tp)} g/dL"
+            + (f" (above {num(th.total_protein_clue_above)}: paraprotein clue)" if high else "")
+        )
         water = formulas.plasma_water_percent(tp, (tg or 0) / 1000, th)
-        lines.append(f"- plasma water (Waugh 1969) ≈ {num(water)} % (normal about 93 %; "
-                     "triglycerides stand in for total lipids)")
-    lines.append("Isotonic solutes (mannitol, glycine or sorbitol irrigation) also give this "
-                 "picture where recorded.")
+        lines.append(
+            f"- plasma water (Waugh 1969) ≈ {num(water)} % (normal about 93 %; "
+            "triglycerides stand in for total lipids)"
+        )
+    lines.append(
+        "Isotonic solutes (mannitol, glycine or sorbitol irrigation) also give this "
+        "picture where recorded."
+    )
     return lines
 
 
 # --- Osmolal gap --------------------------------------------------------------------------------
+
 
 def osmolal_gap_finding(c: Chemistry) -> Finding | None:
     gap = c.osmolal_gap
@@ -233,8 +267,10 @@ def osmolal_gap_finding(c: Chemistry) -> Finding | None:
     return Finding(
         code=FindingCode.OSMOLAL_GAP,
         urgency=Urgency.INFO,
-        summary=(f"Osmolal gap {num(gap)} mOsm/kg (measured {num(measured)}, calculated "
-                 f"{num(calc)}): unmeasured osmoles present"),
+        summary=(
+            f"Osmolal gap {num(gap)} mOsm/kg (measured {num(measured)}, calculated "
+            f"{num(calc)}): unmeasured osmoles present"
+        ),
         details=(
             f"A gap above {num(c.th.osmolal_gap_elevated_above)} mOsm/kg points to "
             "unmeasured osmoles or a falsely low sodium:",
@@ -243,14 +279,17 @@ def osmolal_gap_finding(c: Chemistry) -> Finding | None:
             "- pseudohyponatremia (very high lipids or proteins, indirect ISE)",
             *_osmotic_agents(c),
         ),
-        values=(value(V.OSMOLAL_GAP, gap), *c.osmolality_values(),
-                value(V.SERUM_SODIUM, c.sodium.value)),
+        values=(
+            value(V.OSMOLAL_GAP, gap),
+            *c.osmolality_values(),
+            value(V.SERUM_SODIUM, c.sodium.value),
+        ),
         inputs=c.inputs(Analyte.OSMOLALITY, Analyte.GLUCOSE, Analyte.UREA_NITROGEN),
-        formulas=(*c.calculated_formula(),
-                  f"Osmolal gap = {num(measured)} − {num(calc)} = {num(gap)} mOsm/kg"),
+        formulas=(
+            *c.calculated_formula(),
+            f"Osmolal gap = {num(measured)} − {num(calc)} = {num(gap)} mOsm/kg",
+        ),
         sources=(c.th.cite("osmolal_gap_elevated_above"), c.th.cite("glucose_mg_dl_per_mmol_l")),
         next_steps=("Consider toxic alcohol screening when the history fits.",),
         cautions=(CAUTION,),
     )
-
-

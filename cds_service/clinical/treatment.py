@@ -36,14 +36,18 @@ class BodyWater:
 
     def lines(self) -> tuple[str, ...]:
         kg = num(self.weight.value)
-        return tuple(f"Total body water ({who}) = {num(frac, 2)} × {kg} kg = {num(litres)} L"
-                     for who, frac, litres in self.candidates)
+        return tuple(
+            f"Total body water ({who}) = {num(frac, 2)} × {kg} kg = {num(litres)} L"
+            for who, frac, litres in self.candidates
+        )
 
     def notes(self) -> tuple[str, ...]:
         if not self.uncertain:
             return ()
-        return (f"Sex or age not recorded: body water computed for each; the figures use the "
-                f"smallest, {num(self.litres)} L (it predicts the largest change).",)
+        return (
+            f"Sex or age not recorded: body water computed for each; the figures use the "
+            f"smallest, {num(self.litres)} L (it predicts the largest change).",
+        )
 
 
 def body_water(ctx: ClinicalContext, th: Thresholds) -> BodyWater | None:
@@ -95,21 +99,29 @@ class InfusionEffect:
             f"{signed(self.delta_per_liter)} mmol/L"
         ]
         if self.max_volume_24h is not None and self.headroom_24h == 0:
-            out.append(f"24-h limit already used: sodium has risen {num(self.risen_24h)} mmol/L "
-                       f"in 24 h against a limit of {num(self.limit_24h)}; any further rise "
-                       "exceeds it")
+            out.append(
+                f"24-h limit already used: sodium has risen {num(self.risen_24h)} mmol/L "
+                f"in 24 h against a limit of {num(self.limit_24h)}; any further rise "
+                "exceeds it"
+            )
         elif self.max_volume_24h is not None:
             if self.risen_24h > 0:
-                out.append(f"Left of the {num(self.limit_24h)} mmol/L 24-h limit = "
-                           f"{num(self.limit_24h)} − {num(self.risen_24h)} already risen = "
-                           f"{num(self.headroom_24h)} mmol/L")
-            out.append(f"Volume to the {num(self.limit_24h)} mmol/L 24-h limit = "
-                       f"{num(self.headroom_24h)} / {num(self.delta_per_liter)} = "
-                       f"{num(self.max_volume_24h, 2)} L")
+                out.append(
+                    f"Left of the {num(self.limit_24h)} mmol/L 24-h limit = "
+                    f"{num(self.limit_24h)} − {num(self.risen_24h)} already risen = "
+                    f"{num(self.headroom_24h)} mmol/L"
+                )
+            out.append(
+                f"Volume to the {num(self.limit_24h)} mmol/L 24-h limit = "
+                f"{num(self.headroom_24h)} / {num(self.delta_per_liter)} = "
+                f"{num(self.max_volume_24h, 2)} L"
+            )
         rise = self.projected_rise_24h
         if rise is not None and self.volume_24h is not None:
-            out.append(f"Projected 24-h change = {signed(self.delta_per_liter)} × "
-                       f"{num(self.volume_24h, 2)} L = {signed(rise)} mmol/L")
+            out.append(
+                f"Projected 24-h change = {signed(self.delta_per_liter)} × "
+                f"{num(self.volume_24h, 2)} L = {signed(rise)} mmol/L"
+            )
         return tuple(out)
 
 

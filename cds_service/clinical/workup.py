@@ -21,6 +21,7 @@ V = ValueName
 
 # --- Drugs and endocrine screen -----------------------------------------------------------------
 
+
 def drug_associated_finding(c: Chemistry) -> Finding | None:
     matches = active_matches(c.ctx, DrugRole.ASSOCIATED)
     if not matches:
@@ -39,10 +40,13 @@ def drug_associated_finding(c: Chemistry) -> Finding | None:
             for m in matches
         ),
         values=(value(V.SERUM_SODIUM, c.sodium.value),),
-        inputs=(used(c.sodium), *(
-            InputUsed(label="Medication", value=m.display, unit="", source_id=m.source_id)
-            for m in matches
-        )),
+        inputs=(
+            used(c.sodium),
+            *(
+                InputUsed(label="Medication", value=m.display, unit="", source_id=m.source_id)
+                for m in matches
+            ),
+        ),
         sources=unique([m.drug_class.citation for m in matches]),
         next_steps=("Review whether each drug is still needed; stop or replace it where safe.",),
         cautions=(CAUTION,),
@@ -58,11 +62,15 @@ def endocrine_finding(c: Chemistry) -> Finding | None:
     return Finding(
         code=FindingCode.ENDOCRINE_SCREEN,
         urgency=Urgency.INFO,
-        summary=(f"Hypotonic hyponatremia: {words} {verb} not measured; hypothyroidism and "
-                 "adrenal insufficiency are not yet excluded"),
-        details=("Hypothyroidism and adrenal insufficiency must be excluded before SIADH can "
-                 "be diagnosed (Schwartz & Bartter 1957; 2014 European guideline).",
-                 "A morning cortisol is the usual first test."),
+        summary=(
+            f"Hypotonic hyponatremia: {words} {verb} not measured; hypothyroidism and "
+            "adrenal insufficiency are not yet excluded"
+        ),
+        details=(
+            "Hypothyroidism and adrenal insufficiency must be excluded before SIADH can "
+            "be diagnosed (Schwartz & Bartter 1957; 2014 European guideline).",
+            "A morning cortisol is the usual first test.",
+        ),
         values=(value(V.SERUM_SODIUM, c.sodium.value),),
         inputs=c.inputs(Analyte.TSH, Analyte.CORTISOL),
         sources=(c.th.cite("tonicity_hypotonic_below"), c.th.cite("tsh_upper_normal")),
@@ -84,4 +92,3 @@ def workup_findings(ctx: ClinicalContext, th: Thresholds) -> list[Finding]:
     if c.call.tonicity is Tonicity.HYPOTONIC:
         found.append(endocrine_finding(c))
     return [f for f in found if f is not None]
-
