@@ -234,6 +234,8 @@ class _Record:
 
     def read(self, key: str, res: dict[str, Any]) -> None:
         kind, report = res["resourceType"], self.report
+        if kind == "Observation" and self.reader.fast(res, key, self._same_patient):
+            return
         other = _other_patient(res, self.patient_id)
         if other:
             report.ignore(key, kind, f"belongs to another patient ({other})")
@@ -251,6 +253,9 @@ class _Record:
             report.add(key, "medication definition", True, "read through references")
         else:
             report.ignore(key, kind, "resource type not read by Tonicity")
+
+    def _same_patient(self, res: dict[str, Any]) -> bool:
+        return _other_patient(res, self.patient_id) is None
 
 
 def _patient(

@@ -56,6 +56,11 @@ _QUANTITY_AT = {t: fields.index("valueQuantity") for t, fields in _SHARED.items(
 RESOURCE_TYPES = tuple(_MODULES)
 
 
+def shared_fields(resource_type: str) -> tuple[str, ...]:
+    """The fields one shared check of ``resource_type`` covers, in key order."""
+    return _SHARED[resource_type]
+
+
 @cache
 def model_for(resource_type: str) -> Any:
     module = import_module(f"fhir.resources.R4B.{_MODULES[resource_type]}")
