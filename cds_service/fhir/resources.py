@@ -47,6 +47,32 @@ def report_duplicates(collected: Collected, report: ReportBuilder) -> None:
         )
 
 
+def _plain_entry(entry: Any, out: Collected) -> bool:
+    """Collect the common entry (a resource with a type other than Bundle and an id, seen
+    for the first time) without the general walk; False, having done nothing, otherwise.
+    Same outcome as ``_walk`` for it: the walk is a tenth of ingestion at 5,000 entries."""
+    if type(entry) is not dict:
+        return False
+    item = entry.get("resource")
+    if type(item) is not dict:
+        return False
+    resource_type, rid = item.get("resourceType"), item.get("id")
+    if type(resource_type) is not str or type(rid) is not str or resource_type == "Bundle":
+        return False
+    if not resource_type.strip() or not rid.strip():
+        return False
+    key = f"{resource_type}/{rid}"
+    if key in out._seen:
+        return False
+    out._seen.add(key)
+    out.resources.append((key, item))
+    out.index.setdefault(key, item)
+    full_url = text(entry.get("fullUrl"))
+    if full_url:
+        out.index.setdefault(full_url, item)
+    return True
+
+
 def _walk(
     item: Any, full_url: str | None, depth: int, out: Collected, report: ReportBuilder
 ) -> None:
@@ -66,6 +92,8 @@ def _walk(
             report.ignore("Bundle/" + (text(item.get("id")) or ""), "not read", "nested too deep")
             return
         for entry in items(item.get("entry")):
+            if _plain_entry(entry, out):
+                continue
             if not isinstance(entry, dict):
                 report.ignore("(bundle entry)", "not read", "bundle entry is not a JSON object")
                 continue
