@@ -369,7 +369,8 @@ def _record(
     try:
         with store.log_session() as s:
             if snapshot is not None:
-                snapshots.purge_in(s, snapshot.row.created_at)  # as save_snapshot does
+                if snapshots.purge_due(snapshot.row.created_at):
+                    snapshots.purge_in(s, snapshot.row.created_at)
                 s.add(snapshot.row)
             add_cards(s, rows)
     except Exception:

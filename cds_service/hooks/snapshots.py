@@ -3,7 +3,8 @@
 A card link carries only the token (``/trend/{token}``); the store keeps the token's SHA-256,
 never the token itself, so a copy of the database does not open any page. The payload holds
 times, values and findings but no patient identifier and no name. Snapshots expire after
-``server.trend_link_ttl_hours`` and are purged on the next save (and by :func:`purge_expired`).
+``server.trend_link_ttl_hours`` and are purged on the next save (at most once a minute of
+evaluation time on the hook path, see :func:`purge_due`; and by :func:`purge_expired`).
 """
 
 from __future__ import annotations
@@ -214,6 +215,23 @@ def purge_expired(store: Store, now: datetime) -> int:
     """
     with store.session() as s:
         return purge_in(s, _utc(now))
+
+
+#: Evaluation-time seconds between two purges on the hook path: a purge is two statements,
+#: a quarter of the card log's write, and expired rows are refused on reading anyway.
+PURGE_INTERVAL = timedelta(seconds=60)
+_last_purge: list[datetime] = []  # the evaluation time of this process's last hook-path purge
+
+
+def purge_due(now: datetime) -> bool:
+    """True (and noted) when the hook path should purge at ``now``: the first time, a minute
+    after the last, or when ``now`` is before it (a replayed or shifted evaluation time)."""
+    now = _utc(now)
+    last = _last_purge[0] if _last_purge else None
+    if last is not None and last <= now < last + PURGE_INTERVAL:
+        return False
+    _last_purge[:] = [now]
+    return True
 
 
 def purge_in(s: Session, now: datetime) -> int:
