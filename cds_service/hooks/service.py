@@ -11,10 +11,11 @@ work-up and correction-rate cards. Callers' mistakes raise :class:`HookError` (4
 from __future__ import annotations
 
 import asyncio
+import contextvars
 import functools
 import logging
 import re
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 from datetime import datetime
 from typing import Any
@@ -294,9 +295,9 @@ async def evaluate(
     if store is not None and cards:
         client = _client_id(caller)
         write = functools.partial(_record, store, settings, call, client_id=client, now=now)
-        if not await asyncio.to_thread(write, cards, snapshot) and snapshot is not None:
+        if not await _in_log_writer(store, write, cards, snapshot) and snapshot is not None:
             cards = render([])  # its snapshot is not stored: no link to it
-            await asyncio.to_thread(write, cards, None)
+            await _in_log_writer(store, write, cards, None)
         _count_cards(cards)
     return Outcome(
         response=to_json(HookResponse(cards=cards)),
@@ -304,6 +305,15 @@ async def evaluate(
         patient_id=call.patient_id,
         codes=[c.source.topic.code for c in cards if c.source.topic],
         unavailable=dict(state.unavailable),
+    )
+
+
+async def _in_log_writer(store: Any, fn: Callable[..., bool], *args: Any) -> bool:
+    """``fn(*args)`` on the store's log-writer thread (``Store.log_writer``), in this call's
+    context (its request id reaches the log lines); any other store: a pool thread."""
+    call = functools.partial(contextvars.copy_context().run, fn, *args)
+    return await asyncio.get_running_loop().run_in_executor(
+        getattr(store, "log_writer", None), call
     )
 
 

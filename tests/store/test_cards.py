@@ -53,3 +53,21 @@ def test_bad_rows_refused_when_built(change) -> None:
 def test_row_is_typed_constructor() -> None:
     with pytest.raises(ValueError, match="indicator"):
         CardLogRow("u", "sodium-workup", "siadh-pattern", "loud", None, None, T0)
+
+
+def test_hook_records_queue_on_one_writer_thread_in_arrival_order(tmp_path) -> None:
+    # SQLite takes one writer at a time (SQLite documentation, "File Locking And Concurrency
+    # In SQLite Version 3"); Store.log_writer queues this process's hook-call records on one
+    # thread so they never wait on each other's lock. Closing the store writes what is queued.
+    import threading
+
+    from cds_service.store import Store
+
+    store = Store(f"sqlite:///{tmp_path / 'log.db'}")
+    names = {store.log_writer.submit(lambda: threading.current_thread().name).result()}
+    order: list[int] = []
+    for i in range(200):
+        store.log_writer.submit(order.append, i)
+    store.close()
+    assert len(names) == 1 and next(iter(names)).startswith("tonicity-log")
+    assert order == list(range(200))
