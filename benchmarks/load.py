@@ -5,7 +5,8 @@ and the baseline (``benchmarks/baseline_app.py``, same uvicorn settings), and dr
 alternately with the same closed-loop generator (wrk, or httpx when wrk is missing) and the
 same request bodies (``benchmarks/requests.py``): patient-view with about 200 Observations and
 order-select with three draft orders, at concurrency 1, 8 and 32. Then it compares the cost of
-a 5,000-Observation prefetch with the 200-Observation one (sequential calls).
+a 5,000-Observation prefetch with the 200-Observation one (sequential calls), and fits a line
+through the latencies at 200, 1,000, 2,500 and 5,000 Observations.
 
 Prints one JSON document: per configuration p50/p95/p99 latency, throughput and errors of
 both servers, the ratios service/baseline, the generator's CPU use, the service's CPU per
@@ -36,6 +37,7 @@ HOOKS = ("patient-view", "order-select")
 GOAL_P50_RATIO = 1.3  # p50 at concurrency 1 and 8: at most 1.3 x the baseline's
 GOAL_THROUGHPUT_RATIO = 0.7  # at concurrency 32: at least 0.7 x the baseline's
 GOAL_SCALING = 10.0  # 5,000 Observations cost less than 10 x 200
+SCALING_SIZES = (200, 1000, 2500, 5000)  # patient-view prefetch sizes of the scaling run
 
 
 def _parse(argv: list[str] | None) -> argparse.Namespace:
@@ -116,13 +118,16 @@ def _sequential_median(url: str, body: bytes, calls: int) -> tuple[float, list[i
 def _scaling(
     service: _servers.Server, baseline: _servers.Server, bodies: dict[str, Path], calls: int
 ) -> dict[str, Any]:
-    """5,000 vs 200 Observations, sequential calls, sizes alternated call by call."""
+    """Sequential patient-view calls at every size of ``SCALING_SIZES``, sizes alternated call
+    by call: the 5,000/200 ratio of the goal, and a straight-line fit of latency against the
+    number of Observations (intercept, cost per Observation, R^2) that shows whether the cost
+    is linear."""
     path = "/cds-services/sodium-workup"
     med: dict[str, list[float]] = {}
     statuses: dict[str, list[int]] = {}
     for _ in range(calls):
         for label, target in (("service", service), ("baseline", baseline)):
-            for size in ("200", "5000"):
+            for size in SCALING_SIZES:
                 body = bodies[f"patient-view-{size}"].read_bytes()
                 t, st = _sequential_median(target.base_url + path, body, 1)
                 med.setdefault(f"{label}_{size}", []).append(t)
@@ -137,6 +142,19 @@ def _scaling(
         "service_ratio_5000_over_200": _ratio(m["service_5000"], m["service_200"]),
         "baseline_ratio_5000_over_200": _ratio(m["baseline_5000"], m["baseline_200"]),
         "added_cost_ratio_5000_over_200": _ratio(added_5000, added_200),
+        "linear_fit": {label: _fit(m, label) for label in ("service", "baseline")},
+    }
+
+
+def _fit(medians: dict[str, float], label: str) -> dict[str, float]:
+    """Least-squares line through (Observations, median ms) of one server."""
+    xs = [float(n) for n in SCALING_SIZES]
+    ys = [medians[f"{label}_{n}"] for n in SCALING_SIZES]
+    slope, intercept = statistics.linear_regression(xs, ys)
+    return {
+        "intercept_ms": round(intercept, 2),
+        "us_per_observation": round(slope * 1000, 2),
+        "r_squared": round(statistics.correlation(xs, ys) ** 2, 4),
     }
 
 
@@ -231,7 +249,8 @@ def main(argv: list[str] | None = None) -> int:
     with tempfile.TemporaryDirectory(prefix="tonicity-load-") as tmp:
         folder = Path(tmp)
         bodies: dict[str, Path] = {}
-        for hook, n in (("patient-view", 200), ("order-select", 200), ("patient-view", 5000)):
+        sizes = [("order-select", 200)] + [("patient-view", n) for n in SCALING_SIZES]
+        for hook, n in sizes:
             body = rq.hook_request(hook, n)
             path = folder / f"{hook}-{n}.json"
             path.write_text(json.dumps(body), encoding="utf-8")
