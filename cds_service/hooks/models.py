@@ -13,6 +13,8 @@ from typing import Any, Literal
 import orjson
 from pydantic import BaseModel, ConfigDict, Field, model_validator
 
+from cds_service.gcpause import collector_paused
+
 
 class _Open(BaseModel):
     model_config = ConfigDict(extra="allow")
@@ -166,7 +168,8 @@ def strict_json(raw: bytes | str) -> Any:
     than 1,024 levels. orjson parses a 200-Observation hook request in about 60 % of the
     standard library's time (benchmarks/load.py measures the whole call)."""
     try:
-        return orjson.loads(raw)
+        with collector_paused():  # see cds_service/gcpause.py
+            return orjson.loads(raw)
     except orjson.JSONDecodeError as exc:
         what = _constant_at(exc.doc, exc.pos) or _PLAIN.get(exc.msg, exc.msg)
         raise ValueError(f"{what} at line {exc.lineno} column {exc.colno}") from None

@@ -29,6 +29,7 @@ from cds_service.clinical.findings import Finding, FindingCode
 from cds_service.config import Settings
 from cds_service.errors import UserError
 from cds_service.fhir import build_context
+from cds_service.gcpause import collector_paused
 from cds_service.hooks import snapshots
 from cds_service.hooks.cards import one_per_code, render_card, suggested_tests
 from cds_service.hooks.fetch import fetch_all
@@ -254,15 +255,16 @@ async def evaluate(
     call = parse_call(body, service_id)
     state = await gather_data(call, settings, http=http, caller=caller, authenticator=authenticator)
     _require(state)
-    ingested = build_context(
-        state.resources(),
-        now=now,
-        settings=settings.ingest,
-        patient_id=call.patient_id,
-        draft_orders=call.draft_orders,
-        selections=call.selections,
-        report_lines=False,  # the hook response does not carry the ingest report
-    )
+    with collector_paused():  # allocation-heavy and synchronous: see cds_service/gcpause.py
+        ingested = build_context(
+            state.resources(),
+            now=now,
+            settings=settings.ingest,
+            patient_id=call.patient_id,
+            draft_orders=call.draft_orders,
+            selections=call.selections,
+            report_lines=False,  # the hook response does not carry the ingest report
+        )
     ctx = ingested.context
     if call.service.hook == "patient-view":
         findings = engine.evaluate_workup(ctx, thresholds)
