@@ -51,6 +51,11 @@ def _parse(argv: list[str] | None) -> argparse.Namespace:
     p.add_argument("--hooks", default=",".join(HOOKS))
     p.add_argument("--httpx", action="store_true", help="use the httpx generator, not wrk")
     p.add_argument("--out", type=Path, help="also write the JSON here")
+    p.add_argument(
+        "--storage-url",
+        help="Tonicity's database (default: a SQLite file in a temporary folder), e.g. the "
+        "PostgreSQL URL a multi-worker deployment would use",
+    )
     args = p.parse_args(argv)
     args.workers = [int(w) for w in (args.workers or ("1" if args.quick else "1,2")).split(",")]
     args.concurrency = [int(c) for c in args.concurrency.split(",")]
@@ -243,6 +248,7 @@ def main(argv: list[str] | None = None) -> int:
             "seconds": args.seconds,
             "rounds": args.rounds,
             "hooks": args.hooks,
+            "storage": (args.storage_url or "sqlite").split(":", 1)[0].split("+", 1)[0],
         },
         "configurations": [],
     }
@@ -280,8 +286,8 @@ def _run_workers(
     results: dict[str, Any],
 ) -> None:
     sport, bport = _servers.free_port(), _servers.free_port()
-    db = folder / f"bench-{workers}w.db"
-    config = _servers.write_config(folder, storage_url=f"sqlite:///{db}", port=sport)
+    storage_url = args.storage_url or f"sqlite:///{folder / f'bench-{workers}w.db'}"
+    config = _servers.write_config(folder, storage_url=storage_url, port=sport)
     service = _servers.Server(
         f"tonicity-{workers}w",
         _servers.uvicorn_argv("benchmarks._entry:make_app", sport, workers=workers, factory=True),
