@@ -15,6 +15,7 @@ import sys
 import time
 from pathlib import Path
 from types import TracebackType
+from typing import Any
 
 import httpx
 
@@ -65,6 +66,21 @@ def write_config(
     path = folder / f"tonicity-{port}.toml"
     path.write_text(text, encoding="utf-8")
     return path
+
+
+def in_process_app(folder: Path, name: str) -> Any:
+    """The whole app for in-process runs over ASGI: auth off, a SQLite file ``<name>.db`` in
+    ``folder``, warnings-only logs (run its lifespan before calling it)."""
+    from cds_service.app import create_app
+    from cds_service.config import load_settings
+
+    settings = load_settings(
+        None,
+        storage={"url": f"sqlite:///{folder / f'{name}.db'}"},
+        auth={"required": False},
+        logging={"level": "WARNING", "patient_id_salt": f"{name}-salt"},
+    )
+    return create_app(settings)
 
 
 def uvicorn_argv(app: str, port: int, *, workers: int = 1, factory: bool = False) -> list[str]:

@@ -42,16 +42,7 @@ def _parse(argv: list[str] | None) -> argparse.Namespace:
 
 
 async def _run(args: argparse.Namespace, folder: Path) -> dict[str, Any]:
-    from cds_service.app import create_app
-    from cds_service.config import load_settings
-
-    settings = load_settings(
-        None,
-        storage={"url": f"sqlite:///{folder / 'profile.db'}"},
-        auth={"required": False},
-        logging={"level": "WARNING", "patient_id_salt": "profile-salt"},
-    )
-    app = create_app(settings)
+    app = _servers.in_process_app(folder, "profile")
     body = json.dumps(rq.hook_request(args.hook, args.observations)).encode()
     path = f"/cds-services/{rq.SERVICE_IDS[args.hook]}"
     headers = {"Content-Type": "application/json"}

@@ -62,16 +62,7 @@ def _slope(samples: list[tuple[int, float]]) -> float | None:
 
 
 async def _soak(args: argparse.Namespace, folder: Path) -> dict[str, Any]:
-    from cds_service.app import create_app
-    from cds_service.config import load_settings
-
-    settings = load_settings(
-        None,
-        storage={"url": f"sqlite:///{folder / 'soak.db'}"},
-        auth={"required": False},
-        logging={"level": "WARNING", "patient_id_salt": "soak-salt"},
-    )
-    app = create_app(settings)
+    app = _servers.in_process_app(folder, "soak")
     mix = _mix(args.observations)
     statuses: Counter[str] = Counter()
     samples: list[tuple[int, float]] = []
