@@ -26,6 +26,7 @@ from fastapi import FastAPI, Request
 from fastapi.exceptions import RequestValidationError
 from fastapi.middleware.cors import CORSMiddleware
 from fastapi.responses import JSONResponse
+from starlette.concurrency import run_in_threadpool
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
 from cds_service import logs, ops
@@ -36,6 +37,7 @@ from cds_service.hooks.models import strict_json
 from cds_service.hooks.registry import SERVICES, discovery
 from cds_service.hooks.service import HookError, evaluate
 from cds_service.store import Store
+from cds_service.store.feedback import record_feedback
 
 _log = logging.getLogger(__name__)
 
@@ -300,10 +302,6 @@ def _install_routes(app: FastAPI, settings: Settings) -> None:
         if service_id not in SERVICES:
             raise HookError(404, f"no CDS service with id {service_id!r}")
         body = await read_json(request, settings.server.max_body_bytes)
-        from starlette.concurrency import run_in_threadpool
-
-        from cds_service.store.feedback import record_feedback
-
         try:
             stored = await run_in_threadpool(
                 record_feedback,

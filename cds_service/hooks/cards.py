@@ -14,6 +14,8 @@ from typing import Any
 
 from cds_service.clinical.context import Analyte
 from cds_service.clinical.findings import FINDING_DISPLAY, Finding, FindingCode, Urgency
+from cds_service.fhir.builders import service_request
+from cds_service.fhir.loinc import order_name
 from cds_service.hooks.models import Action, Card, Coding, Link, Source, Suggestion
 
 SOURCE_LABEL = "Tonicity"
@@ -66,8 +68,6 @@ def _section(title: str, lines: Iterable[str]) -> list[str]:
 
 
 def _test_name(analyte: str) -> str:
-    from cds_service.fhir.loinc import order_name
-
     try:
         return order_name(Analyte(analyte))
     except ValueError:
@@ -127,8 +127,6 @@ def suggested_tests(findings: Sequence[Finding]) -> list[tuple[str, ...]]:
 
 
 def _suggestions(finding: Finding, patient_id: str, tests: Iterable[str]) -> list[Suggestion]:
-    from cds_service.fhir.builders import service_request
-
     reason = f"Hyponatremia work-up: {FINDING_DISPLAY[finding.code]}"
     out: list[Suggestion] = []
     for analyte in dict.fromkeys(tests):
