@@ -163,26 +163,19 @@ def siadh_essential(ctx: ClinicalContext, th: Thresholds) -> tuple[Criterion, ..
 def siadh_supplemental(ctx: ClinicalContext, th: Thresholds) -> tuple[Criterion, ...]:
     """Supplemental criteria for which the record has data (others are left out)."""
     out: list[Criterion] = []
-    uric = _value(ctx, Analyte.URIC_ACID)
-    if uric is not None:
-        ok = uric < th.siadh_uric_acid_below
-        out.append(
-            Criterion(
-                f"serum uric acid < {num(th.siadh_uric_acid_below)} mg/dL",
-                Status.MET if ok else Status.NOT_MET,
-                f"{num(uric)} mg/dL",
+    for label, analyte, below in (
+        ("serum uric acid", Analyte.URIC_ACID, th.siadh_uric_acid_below),
+        ("urea nitrogen", Analyte.UREA_NITROGEN, th.siadh_urea_nitrogen_below),
+    ):
+        measured = _value(ctx, analyte)
+        if measured is not None:
+            out.append(
+                Criterion(
+                    f"{label} < {num(below)} mg/dL",
+                    Status.MET if measured < below else Status.NOT_MET,
+                    f"{num(measured)} mg/dL",
+                )
             )
-        )
-    bun = _value(ctx, Analyte.UREA_NITROGEN)
-    if bun is not None:
-        ok = bun < th.siadh_urea_nitrogen_below
-        out.append(
-            Criterion(
-                f"urea nitrogen < {num(th.siadh_urea_nitrogen_below)} mg/dL",
-                Status.MET if ok else Status.NOT_MET,
-                f"{num(bun)} mg/dL",
-            )
-        )
     creat, ucreat = _value(ctx, Analyte.CREATININE), _value(ctx, Analyte.URINE_CREATININE)
     for label, urine, serum, limit in (
         ("uric acid", Analyte.URINE_URIC_ACID, Analyte.URIC_ACID, th.siadh_fe_urate_above),
