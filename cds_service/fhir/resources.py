@@ -64,13 +64,17 @@ def _plain_entry(entry: Any, out: Collected) -> bool:
     key = f"{resource_type}/{rid}"
     if key in out._seen:
         return False
+    _keep(out, key, item, text(entry.get("fullUrl")))
+    return True
+
+
+def _keep(out: Collected, key: str, item: dict[str, Any], full_url: str | None) -> None:
+    """Record a resource seen for the first time under its key (and its fullUrl)."""
     out._seen.add(key)
     out.resources.append((key, item))
     out.index.setdefault(key, item)
-    full_url = text(entry.get("fullUrl"))
     if full_url:
         out.index.setdefault(full_url, item)
-    return True
 
 
 def _walk(
@@ -108,8 +112,4 @@ def _walk(
     if key in out._seen:
         out.duplicates.append(key)
         return
-    out._seen.add(key)
-    out.resources.append((key, item))
-    out.index.setdefault(key, item)
-    if full_url:
-        out.index.setdefault(full_url, item)
+    _keep(out, key, item, full_url)
