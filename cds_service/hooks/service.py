@@ -381,7 +381,7 @@ def _record(
     try:
         with store.log_session() as s:
             if snapshot is not None:
-                if snapshots.purge_due(snapshot.row.created_at):
+                if snapshots.purge_due(store, snapshot.row.created_at):
                     snapshots.purge_in(s, snapshot.row.created_at)
                 s.add(snapshot.row)
             add_cards(s, rows)

@@ -220,17 +220,18 @@ def purge_expired(store: Store, now: datetime) -> int:
 #: Evaluation-time seconds between two purges on the hook path: a purge is two statements,
 #: a quarter of the card log's write, and expired rows are refused on reading anyway.
 PURGE_INTERVAL = timedelta(seconds=60)
-_last_purge: list[datetime] = []  # the evaluation time of this process's last hook-path purge
+_last_purge: dict[str, datetime] = {}  # per database URL: evaluation time of the last purge
 
 
-def purge_due(now: datetime) -> bool:
-    """True (and noted) when the hook path should purge at ``now``: the first time, a minute
-    after the last, or when ``now`` is before it (a replayed or shifted evaluation time)."""
+def purge_due(store: Store, now: datetime) -> bool:
+    """True (and noted) when the hook path should purge ``store`` at ``now``: the first time,
+    a minute after its last purge, or when ``now`` is before it (a replayed or shifted
+    evaluation time)."""
     now = _utc(now)
-    last = _last_purge[0] if _last_purge else None
+    last = _last_purge.get(store.url)
     if last is not None and last <= now < last + PURGE_INTERVAL:
         return False
-    _last_purge[:] = [now]
+    _last_purge[store.url] = now
     return True
 
 

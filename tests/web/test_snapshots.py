@@ -158,13 +158,16 @@ def test_known_associated_drug_is_flagged_without_a_citing_finding() -> None:
     assert flags["Hydrochlorothiazide 25 mg tablet"] is True
 
 
-def test_the_hook_path_purges_at_most_once_a_minute_of_evaluation_time() -> None:
+def test_the_hook_path_purges_at_most_once_a_minute_of_evaluation_time(tmp_path) -> None:
     # Housekeeping rate (common practice): expired rows are refused on reading, so purging on
     # every hook call only costs; once a minute of evaluation time keeps the table small.
-    snapshots._last_purge.clear()
+    one, other = Store(f"sqlite:///{tmp_path / 'a.db'}"), Store(f"sqlite:///{tmp_path / 'b.db'}")
     t0 = NOW
-    assert snapshots.purge_due(t0)
-    assert not snapshots.purge_due(t0 + timedelta(seconds=59))
-    assert snapshots.purge_due(t0 + timedelta(seconds=60))
-    assert snapshots.purge_due(t0)  # an earlier evaluation time (a replay): purge again
-    assert not snapshots.purge_due(t0 + timedelta(seconds=1))
+    assert snapshots.purge_due(one, t0)
+    assert not snapshots.purge_due(one, t0 + timedelta(seconds=59))
+    assert snapshots.purge_due(other, t0 + timedelta(seconds=59))  # each store keeps its own
+    assert snapshots.purge_due(one, t0 + timedelta(seconds=60))
+    assert snapshots.purge_due(one, t0)  # an earlier evaluation time (a replay): purge again
+    assert not snapshots.purge_due(one, t0 + timedelta(seconds=1))
+    one.close()
+    other.close()
