@@ -139,7 +139,8 @@ ALL_CODES = [
     "hypertonic-hyponatremia", "osmolal-gap-elevated", "dilute-urine", "low-urine-sodium",
     "siadh-pattern", "drug-associated", "endocrine-screen", "correction-rate-exceeded",
     "implausible-result", "out-of-scope", "hypotonic-fluid-order", "isotonic-fluid-order",
-    "hypertonic-saline-order", "drug-order-risk", "vaptan-order",
+    "hypertonic-saline-order", "drug-order-risk", "vaptan-order", "potassium-order",
+    "unidentified-order",
 ]
 PATIENT_VIEW_ONLY = ALL_CODES[:10]
 ORDER_ONLY = ALL_CODES[13:]

@@ -74,6 +74,13 @@ class ConditionCategory(StrEnum):
     VOMITING_DIARRHEA = "vomiting_diarrhea"
 
 
+class DisplayUnits(StrEnum):
+    """Which units card text shows clinicians (machine values stay in CANONICAL_UNITS)."""
+
+    CONVENTIONAL = "conventional"  # mg/dL, g/dL, ug/dL ...
+    SI = "si"  # mmol/L, umol/L, g/L, nmol/L ...
+
+
 class Sex(StrEnum):
     """Administrative gender as far as the body-water fraction needs it."""
 
@@ -154,10 +161,26 @@ class DraftMedication:
 
 
 @dataclass(frozen=True, slots=True)
+class DraftUnidentified:
+    """A draft order that looks like an IV fluid, or a drug coded in a system Tonicity does
+    not know, and that could not be identified: shown to the clinician, never ignored."""
+
+    resource_id: str
+    display: str  # what was sent, as far as it can be shown
+    kind: str  # "fluid" | "drug"
+    reason: str  # clinician-readable: why it could not be identified
+    codes: tuple[str, ...] = ()  # "system|code" as sent
+    selected: bool = True
+
+
+@dataclass(frozen=True, slots=True)
 class PatientFacts:
     patient_id: str | None
     age_years: float | None  # at evaluation time
     sex: Sex = Sex.UNKNOWN
+    #: False when no readable Patient resource was had: age and sex were never checked, so
+    #: no card may treat the patient as a known adult or use sex-specific numbers unqualified.
+    known: bool = True
 
 
 @dataclass(frozen=True, slots=True)
@@ -179,6 +202,11 @@ class ClinicalContext:
     conditions: tuple[ConditionEntry, ...] = ()
     draft_fluids: tuple[DraftFluid, ...] = ()
     draft_medications: tuple[DraftMedication, ...] = ()
+    draft_unidentified: tuple[DraftUnidentified, ...] = ()
+    #: Queries (prefetch keys) of which only the first page of a paged Bundle was read.
+    partial_reads: tuple[str, ...] = ()
+    #: Units for numbers in card text (institution setting); values stay canonical.
+    display_units: DisplayUnits = DisplayUnits.CONVENTIONAL
 
     def has_condition(self, category: ConditionCategory) -> bool:
         return any(c.category == category for c in self.conditions)

@@ -32,6 +32,8 @@ class FindingCode(StrEnum):
     HYPERTONIC_SALINE_ORDER = "hypertonic-saline-order"
     DRUG_ORDER_RISK = "drug-order-risk"
     VAPTAN_ORDER = "vaptan-order"
+    POTASSIUM_ORDER = "potassium-order"
+    UNIDENTIFIED_ORDER = "unidentified-order"
 
 
 #: Short human label per finding code (used as ``source.topic.display``).
@@ -54,6 +56,8 @@ FINDING_DISPLAY: dict[FindingCode, str] = {
     FindingCode.HYPERTONIC_SALINE_ORDER: "Hypertonic saline ordered",
     FindingCode.DRUG_ORDER_RISK: "Hyponatremia-associated drug ordered",
     FindingCode.VAPTAN_ORDER: "Vasopressin-receptor antagonist ordered",
+    FindingCode.POTASSIUM_ORDER: "Potassium ordered in hyponatremia",
+    FindingCode.UNIDENTIFIED_ORDER: "Order that could not be identified",
 }
 
 
@@ -76,6 +80,17 @@ class ValueName(StrEnum):
     DELTA_SODIUM_PER_LITER = "delta_sodium_per_liter"
     MAX_VOLUME_24H = "max_volume_24h"
     SEVERITY = "severity"
+    # Added with the clinical pathway revision (DESIGN.md lists them).
+    EFFECTIVE_OSMOLALITY = "effective_osmolality"
+    ETHANOL = "ethanol"
+    CORRECTED_SEVERITY = "corrected_severity"
+    CORRECTION_GOAL_24H = "correction_goal_24h"
+    VOLUME_TO_GOAL_24H = "volume_to_goal_24h"
+    EGFR = "egfr"
+    FE_URATE = "fe_urate"
+    FE_SODIUM = "fe_sodium"
+    FREE_WATER_RELOWERING = "free_water_relowering"
+    DESMOPRESSIN_DOSE = "desmopressin_dose"
 
 
 #: The UCUM unit each value name is reported in (DESIGN.md, contract).
@@ -96,6 +111,16 @@ VALUE_UNITS: dict[ValueName, str] = {
     ValueName.DELTA_SODIUM_PER_LITER: "mmol/L",
     ValueName.MAX_VOLUME_24H: "L",
     ValueName.SEVERITY: "1",
+    ValueName.EFFECTIVE_OSMOLALITY: "mosm/kg",
+    ValueName.ETHANOL: "mg/dL",
+    ValueName.CORRECTED_SEVERITY: "1",
+    ValueName.CORRECTION_GOAL_24H: "mmol/L",
+    ValueName.VOLUME_TO_GOAL_24H: "L",
+    ValueName.EGFR: "mL/min/{1.73_m2}",
+    ValueName.FE_URATE: "%",
+    ValueName.FE_SODIUM: "%",
+    ValueName.FREE_WATER_RELOWERING: "mL",
+    ValueName.DESMOPRESSIN_DOSE: "ug",
 }
 
 

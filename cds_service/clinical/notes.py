@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from cds_service.clinical.context import Analyte, LabResult
+from cds_service.clinical.context import CANONICAL_UNITS, Analyte, DisplayUnits, LabResult
 from cds_service.clinical.findings import InputUsed, Value, ValueName
 
 CAUTION = (
@@ -78,3 +78,34 @@ def shorten(text: str, limit: int) -> str:
 def unique(items: list[str] | tuple[str, ...]) -> tuple[str, ...]:
     """Items in first-seen order without repeats."""
     return tuple(dict.fromkeys(items))
+
+
+#: How clinicians write each canonical UCUM unit in card text (one spelling everywhere;
+#: UCUM codes stay in the machine fields).
+HUMAN_UNITS: dict[str, str] = {
+    "mmol/L": "mmol/L",
+    "mg/dL": "mg/dL",
+    "g/dL": "g/dL",
+    "ug/dL": "µg/dL",
+    "mosm/kg": "mOsm/kg",
+    "m[IU]/L": "mIU/L",
+    "L": "L",
+    "kg": "kg",
+    "cm": "cm",
+}
+
+
+def human_unit(ucum: str) -> str:
+    """The clinician's spelling of a UCUM unit code (the code itself when none is listed)."""
+    return HUMAN_UNITS.get(ucum, ucum)
+
+
+def qty(x: float, analyte: Analyte, display: DisplayUnits = DisplayUnits.CONVENTIONAL) -> str:
+    """A lab quantity for card text, in the institution's display units: ``"7.2 mg/dL"``.
+
+    Write every lab number with its unit through this function so that the display-unit
+    setting (``ctx.display_units``) applies everywhere. Until SI display is implemented the
+    conventional (canonical) unit is shown for both settings.
+    """
+    del display  # SI display: see the real-records issue
+    return f"{num(x)} {human_unit(CANONICAL_UNITS[analyte])}"

@@ -46,7 +46,9 @@ text = st.text(st.characters(codec="utf-8", exclude_categories=("Cs", "Cc")), ma
 summaries = text.filter(lambda s: s.strip()).map(lambda s: s[:139])
 values = st.builds(
     Value,
-    name=st.sampled_from([v for v in ValueName if v is not ValueName.SEVERITY]),
+    name=st.sampled_from(
+        [v for v in ValueName if v not in (ValueName.SEVERITY, ValueName.CORRECTED_SEVERITY)]
+    ),
     value=st.floats(min_value=-1000, max_value=1000, allow_nan=False),
 )
 inputs = st.builds(

@@ -1,0 +1,1 @@
+"""Alert burden: per-finding settings, silent mode and repeat suppression (see policy.py)."""
