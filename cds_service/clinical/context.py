@@ -34,6 +34,9 @@ class Analyte(StrEnum):
     CORTISOL = "cortisol"
     BODY_WEIGHT = "body_weight"
     BODY_HEIGHT = "body_height"
+    ETHANOL = "ethanol"  # serum/plasma/blood ethanol: an ineffective osmole
+    FREE_T4 = "free_t4"  # free thyroxine
+    EGFR = "egfr"  # estimated GFR as reported by the laboratory
 
 
 #: Canonical UCUM unit per analyte: the FHIR layer converts every value into it.
@@ -58,6 +61,9 @@ CANONICAL_UNITS: dict[Analyte, str] = {
     Analyte.CORTISOL: "ug/dL",
     Analyte.BODY_WEIGHT: "kg",
     Analyte.BODY_HEIGHT: "cm",
+    Analyte.ETHANOL: "mg/dL",
+    Analyte.FREE_T4: "ng/dL",
+    Analyte.EGFR: "mL/min/{1.73_m2}",
 }
 
 

@@ -31,6 +31,9 @@ LABELS: dict[Analyte, str] = {
     Analyte.CORTISOL: "Cortisol",
     Analyte.BODY_WEIGHT: "Body weight",
     Analyte.BODY_HEIGHT: "Body height",
+    Analyte.ETHANOL: "Ethanol",
+    Analyte.FREE_T4: "Free T4",
+    Analyte.EGFR: "eGFR",
 }
 
 
@@ -92,6 +95,8 @@ HUMAN_UNITS: dict[str, str] = {
     "L": "L",
     "kg": "kg",
     "cm": "cm",
+    "ng/dL": "ng/dL",
+    "mL/min/{1.73_m2}": "mL/min/1.73 m²",
 }
 
 
