@@ -124,6 +124,23 @@ def create_router() -> APIRouter:
         """A pasted or uploaded patient Bundle turned into the hook request a client sends."""
         return _build(record, hook)
 
+    @router.post("/workbench/understand")
+    async def understand_request(request: Request, record: Any = Body(...)) -> JSONResponse:
+        """The record as Tonicity read it, for the request the page sends (see understand)."""
+        from cds_service.clinical.thresholds import load_thresholds
+        from cds_service.hooks.service import HookError
+        from cds_service.web.understand import understand
+
+        settings = _settings(request)
+        thresholds = getattr(request.app.state, "thresholds", None) or load_thresholds()
+        try:
+            body = await understand(
+                record, settings=settings, thresholds=thresholds, now=datetime.now(UTC)
+            )
+        except HookError as exc:
+            return _problem(exc.status if 400 <= exc.status < 500 else 400, exc.message)
+        return JSONResponse(body)
+
     @router.post("/workbench/render")
     def render(body: RenderBody) -> JSONResponse:
         if sum(len(t) for t in body.texts) > 500_000:
