@@ -11,9 +11,10 @@ from __future__ import annotations
 
 import asyncio
 import logging
+import re
 from dataclasses import dataclass
 from typing import Any
-from urllib.parse import urljoin, urlsplit
+from urllib.parse import urljoin
 
 import httpx
 
@@ -41,11 +42,39 @@ class FetchError(Exception):
 MAX_PAGE_BYTES = 20_000_000
 
 
+#: Percent-encoded ".", "/" and "\\" in a path: a server may decode them into dot segments or
+#: separators after our check, so a URL carrying one is never sent the token.
+_ENCODED_SEPARATORS = re.compile(r"%(2e|2f|5c)", re.IGNORECASE)
+
+
+def _server_url(url: str) -> httpx.URL | None:
+    """``url`` as httpx will send it: dot segments removed (RFC 3986 section 5.2.4, done by
+    httpx's URL parser), or None when it carries an encoded dot, slash or backslash, a
+    backslash, user info or anything that is not an http(s) URL."""
+    try:
+        parsed = httpx.URL(url)
+    except (httpx.InvalidURL, TypeError, ValueError):
+        return None
+    raw_path = parsed.raw_path.split(b"?", 1)[0].decode("ascii", "replace")
+    if (
+        parsed.scheme not in ("http", "https")
+        or not parsed.host
+        or parsed.userinfo
+        or "\\" in raw_path
+        or _ENCODED_SEPARATORS.search(raw_path)
+    ):
+        return None
+    return parsed
+
+
 def _same_server(url: str, base: str) -> bool:
-    """Is ``url`` on the FHIR server ``base`` (same scheme, host, port, under its path)?"""
-    u, b = urlsplit(url), urlsplit(base)
+    """Is ``url`` on the FHIR server ``base`` (same scheme, host, port, under its path), as
+    the request would actually be sent (see :func:`_server_url`)?"""
+    u, b = _server_url(url), _server_url(base)
+    if u is None or b is None:
+        return False
     root = b.path.rstrip("/")
-    return (u.scheme, u.netloc.lower()) == (b.scheme, b.netloc.lower()) and (
+    return (u.scheme, u.host, u.port) == (b.scheme, b.host, b.port) and (
         u.path == root or u.path.startswith(root + "/")
     )
 
@@ -107,6 +136,8 @@ async def fetch_query(
     if token:
         headers["Authorization"] = f"Bearer {token}"
     url = urljoin(base.rstrip("/") + "/", query)
+    if not _same_server(url, base):  # a query is relative: it must stay under fhirServer
+        raise FetchError("invalid", "query does not stay on the FHIR server; not sent")
     first = await _get(http, url, headers)
     if first["resourceType"] != "Bundle":
         return first

@@ -42,6 +42,8 @@ _log = logging.getLogger(__name__)
 
 #: A FHIR id (FHIR R4 ``id`` datatype); patient ids outside it never reach a query.
 FHIR_ID = re.compile(r"[A-Za-z0-9\-.]{1,64}")
+#: Ids the datatype allows that a URL path reads as a dot segment (RFC 3986 section 3.3).
+DOT_SEGMENTS = frozenset({".", ".."})
 
 #: Codes whose cards link to the trend view (work-up and correction-rate surveillance).
 TREND_CODES = frozenset(
@@ -132,8 +134,12 @@ def parse_call(body: object, service_id: str | None = None) -> HookCall:
         if ctx.get(key) in (None, "", [], {}):
             raise HookError(400, f"context.{key} is required for the {service.hook} hook")
     patient_id = ctx.get("patientId")
-    if not isinstance(patient_id, str) or not FHIR_ID.fullmatch(patient_id):
-        raise HookError(400, "context.patientId must be a FHIR id")
+    if (
+        not isinstance(patient_id, str)
+        or not FHIR_ID.fullmatch(patient_id)
+        or patient_id in DOT_SEGMENTS
+    ):
+        raise HookError(400, "context.patientId must be a FHIR id (and not '.' or '..')")
     drafts: tuple[dict[str, Any], ...] = ()
     selections: tuple[str, ...] = ()
     if "draftOrders" in service.required_context:
