@@ -85,8 +85,9 @@ def test_every_primary_entry_has_a_short_order_name() -> None:
 
 def test_mixed_venous_sodium_has_its_published_long_name() -> None:
     # LOINC v2.70 display of 41657-8 "Sodium [Moles/volume] in Mixed venous blood", as listed
-    # in The-Ronin-Project FHIR profile's FSH ValueSet "Sodium"; capillary blood sodium is a
-    # different code (39792-7 in the same listing). The map had called 41657-8 capillary.
+    # in the FSH ValueSet "Sodium" of The-Ronin-Project/infx-fhir-profile OncologyTestData.fsh
+    # (an earlier version); capillary blood sodium is a different code (39792-7 in the same
+    # listing). The map had called 41657-8 capillary.
     entry = loinc.lookup("41657-8")
     assert entry is not None and entry.checked
     assert entry.name == "Sodium [Moles/volume] in Mixed venous blood"
