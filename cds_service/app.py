@@ -156,7 +156,7 @@ def create_app(settings: Settings) -> FastAPI:
         # Parse unit tables and FHIR models now, not on the first clinician's request
         # (it cost about 0.8 s there).
         warm_up()
-        store = Store(settings.storage.url)
+        store = Store(settings.storage.url, migrate=settings.storage.migrate_at_start)
         http = httpx.AsyncClient(
             timeout=httpx.Timeout(
                 settings.fhir.time_budget_seconds, connect=settings.fhir.connect_timeout_seconds

@@ -1,5 +1,5 @@
 """``tonicity`` command line (DESIGN.md contract): serve, evaluate, inspect, replay, keys,
-feedback-report. Each subcommand lives in ``cds_service.commands.<name>`` with
+feedback-report, db. Each subcommand lives in ``cds_service.commands.<name>`` with
 ``add_arguments(parser)`` and ``run(args) -> int``; heavy imports happen inside ``run``.
 """
 
@@ -18,6 +18,7 @@ COMMANDS: dict[str, tuple[str, str]] = {
     "replay": ("replay", "post the sample requests to a running deployment and check them"),
     "keys": ("keys", "generate a client key pair and JWKS, or sign a test token"),
     "feedback-report": ("feedback_report", "acceptance and override rates per finding code"),
+    "db": ("db", "upgrade the database schema, or show its revision"),
 }
 
 
