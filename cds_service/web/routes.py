@@ -16,8 +16,9 @@ from fastapi.responses import FileResponse, HTMLResponse, JSONResponse, Response
 from markupsafe import Markup
 from pydantic import BaseModel, Field
 
+from cds_service.clinical.findings import FindingCode
 from cds_service.hooks import snapshots
-from cds_service.web import pages, samples, trend
+from cds_service.web import findings, pages, samples, trend
 from cds_service.web.markdown import render_markdown
 
 STATIC_DIR = Path(__file__).parent / "static"
@@ -146,6 +147,16 @@ def create_router() -> APIRouter:
         if sum(len(t) for t in body.texts) > 500_000:
             return _problem(413, "too much text to render")
         return JSONResponse({"html": [render_markdown(t) for t in body.texts]})
+
+    @router.get("/findings/{code}", response_class=HTMLResponse)
+    def finding_page(code: str, request: Request) -> HTMLResponse:
+        """The page behind every card's ``source.url`` (see :mod:`cds_service.web.findings`)."""
+        try:
+            finding = FindingCode(code)
+        except ValueError:
+            return _plain(404, "Unknown finding", "Tonicity has no finding with this code.")
+        context = findings.page_context(finding, getattr(request.app.state, "thresholds", None))
+        return HTMLResponse(pages.render("findings.html", **context), headers=_PAGE_HEADERS)
 
     @router.get("/trend/{token}", response_class=HTMLResponse)
     def trend_page(token: str, request: Request, view: str = "episode") -> HTMLResponse:
