@@ -34,11 +34,28 @@ class ServerSettings(_Section):
     port: int = Field(8080, ge=1, le=65535)
     max_body_bytes: int = Field(5_000_000, ge=1024)
     trend_link_ttl_hours: float = Field(12.0, gt=0)
+    #: Threads that parse, ingest and evaluate hook calls off the event loop.
+    evaluation_threads: int = Field(4, ge=2, le=64)
+    #: A hook call whose body is larger counts as large (see max_large_calls).
+    large_call_bytes: int = Field(1_000_000, ge=1024)
+    #: Large calls evaluated at once by this process; the next gets 503 with Retry-After.
+    max_large_calls: int = Field(2, ge=1)
+    #: Seconds a refused large call is told to wait (Retry-After).
+    busy_retry_after_seconds: int = Field(5, ge=1, le=600)
 
     @field_validator("public_base_url")
     @classmethod
     def _strip_slash(cls, v: str) -> str:
         return v.rstrip("/")
+
+    @model_validator(mode="after")
+    def _room_for_small_calls(self) -> ServerSettings:
+        if self.max_large_calls >= self.evaluation_threads:
+            raise ValueError(
+                "server.max_large_calls must be below server.evaluation_threads, so that "
+                "small calls always find a thread without a large call"
+            )
+        return self
 
 
 class StorageSettings(_Section):
