@@ -17,7 +17,7 @@ import gc
 import logging
 import time
 from collections.abc import AsyncIterator, Awaitable, Callable, MutableMapping
-from contextlib import asynccontextmanager
+from contextlib import asynccontextmanager, nullcontext
 from datetime import UTC, datetime
 from typing import Any
 
@@ -33,12 +33,20 @@ from cds_service import logs, ops
 from cds_service.config import Settings
 from cds_service.errors import UserError
 from cds_service.hooks.auth import Authenticator, AuthError
-from cds_service.hooks.models import strict_json
+from cds_service.hooks.bodies import (
+    ECHO_LIMIT,
+    BodyTooLarge,
+    declared_length,
+    echo,
+    parse_body,
+    read_body,
+    require_json_media_type,
+)
 from cds_service.hooks.registry import SERVICES, discovery
 from cds_service.hooks.service import HookError, Outcome, evaluate
 from cds_service.store import Store
 from cds_service.store.feedback import record_feedback
-from cds_service.workers import EvaluationPool, LargeCallGate
+from cds_service.workers import EvaluationPool, LargeCallGate, collector_held
 
 _log = logging.getLogger(__name__)
 
@@ -59,9 +67,15 @@ _ISSUE_CODES = {
 }
 
 
+#: Longest ``diagnostics`` of an answer: what a caller sent is never echoed without bound.
+MAX_DIAGNOSTICS = 500
+
+
 def operation_outcome(
     status: int, message: str, headers: dict[str, str] | None = None
 ) -> JSONResponse:
+    if len(message) > MAX_DIAGNOSTICS:
+        message = message[: MAX_DIAGNOSTICS - 20] + " ... (message cut)"
     body = {
         "resourceType": "OperationOutcome",
         "issue": [
@@ -75,52 +89,8 @@ def operation_outcome(
     return JSONResponse(body, status_code=status, headers=headers)
 
 
-class BodyTooLarge(Exception):
-    pass
-
-
 class Busy(Exception):
     """Too many large calls in flight: 503 with Retry-After."""
-
-
-def declared_length(request: Request) -> int | None:
-    declared = request.headers.get("content-length")
-    if declared is None:
-        return None
-    try:
-        return int(declared)
-    except ValueError:
-        raise HookError(400, "Content-Length is not a number") from None
-
-
-async def read_body(request: Request, limit: int) -> bytes:
-    """The request body, refusing more than ``limit`` bytes (declared or streamed)."""
-    declared = declared_length(request)
-    if declared is not None and declared > limit:
-        raise BodyTooLarge
-    chunks: list[bytes] = []
-    size = 0
-    async for chunk in request.stream():
-        size += len(chunk)
-        if size > limit:
-            raise BodyTooLarge
-        chunks.append(chunk)
-    return b"".join(chunks)
-
-
-def parse_body(raw: bytes) -> Any:
-    """A body read by :func:`read_body` as JSON (CPU work: off the event loop for large ones)."""
-    if not raw.strip():
-        raise HookError(400, "the request body is empty; a JSON object is required")
-    try:
-        return strict_json(raw)
-    except ValueError as exc:
-        raise HookError(400, f"the request body is not valid JSON ({exc})") from None
-
-
-async def read_json(request: Request, limit: int) -> Any:
-    """The request body as JSON, refusing more than ``limit`` bytes (declared or streamed)."""
-    return parse_body(await read_body(request, limit))
 
 
 def _local_trial(settings: Settings) -> bool:
@@ -238,7 +208,7 @@ def _install_error_handlers(app: FastAPI) -> None:
     async def _validation(_request: Request, exc: RequestValidationError) -> JSONResponse:
         errors = exc.errors()
         first = errors[0] if errors else {}
-        where = ".".join(str(p) for p in first.get("loc", ())) or "request"
+        where = ".".join(str(p)[:ECHO_LIMIT] for p in first.get("loc", ())) or "request"
         return operation_outcome(400, f"invalid request: {where}: {first.get('msg', 'invalid')}")
 
     @app.exception_handler(StarletteHTTPException)
@@ -307,7 +277,8 @@ def _install_routes(app: FastAPI, settings: Settings) -> None:
         try:
             caller = await _authenticate(request, settings)
             if service_id not in SERVICES:
-                raise HookError(404, f"no CDS service with id {service_id!r}")
+                raise HookError(404, f"no CDS service with id {echo(service_id)}")
+            require_json_media_type(request)
             outcome = await _evaluate_off_loop(request, settings, caller, service_id)
             status = 200
             return JSONResponse(outcome.response)
@@ -332,7 +303,8 @@ def _install_routes(app: FastAPI, settings: Settings) -> None:
     async def feedback(service_id: str, request: Request) -> JSONResponse:
         caller = await _authenticate(request, settings)
         if service_id not in SERVICES:
-            raise HookError(404, f"no CDS service with id {service_id!r}")
+            raise HookError(404, f"no CDS service with id {echo(service_id)}")
+        require_json_media_type(request)
         raw = await read_body(request, settings.server.max_body_bytes)
         try:
             stored = await run_in_threadpool(
@@ -358,28 +330,31 @@ async def _evaluate_off_loop(
     server = settings.server
     gate: LargeCallGate = state.large_calls
     declared = declared_length(request)
-    if declared is not None and declared > server.large_call_bytes and gate.full:
-        raise Busy  # refused before reading it
-    raw = await read_body(request, server.max_body_bytes)
-    large = len(raw) > server.large_call_bytes
+    large = declared is not None and declared > server.large_call_bytes
     if large and not gate.try_enter():
-        raise Busy
-    now = datetime.now(UTC)
-
-    async def work(http: httpx.AsyncClient) -> Outcome:
-        return await evaluate(
-            parse_body(raw),
-            settings=settings,
-            thresholds=state.thresholds,
-            now=now,
-            http=http,
-            caller=caller,
-            service_id=service_id,
-            store=state.store,
-            authenticator=state.authenticator,
-        )
-
+        raise Busy  # refused before its body is read
     try:
+        raw = await read_body(request, server.max_body_bytes)
+        if not large and len(raw) > server.large_call_bytes:  # sent without Content-Length
+            if not gate.try_enter():
+                raise Busy
+            large = True
+        now = datetime.now(UTC)
+
+        async def work(http: httpx.AsyncClient) -> Outcome:
+            with collector_held() if large else nullcontext():
+                return await evaluate(
+                    parse_body(raw),
+                    settings=settings,
+                    thresholds=state.thresholds,
+                    now=now,
+                    http=http,
+                    caller=caller,
+                    service_id=service_id,
+                    store=state.store,
+                    authenticator=state.authenticator,
+                )
+
         return await state.pool.run(work, large=large)
     finally:
         if large:

@@ -7,6 +7,7 @@ Relative file paths in the TOML file (``jwks_file``) are resolved against the fi
 
 from __future__ import annotations
 
+import re
 import tomllib
 from pathlib import Path
 from typing import Any
@@ -22,6 +23,9 @@ from pydantic import (
 from pydantic_settings import BaseSettings, PydanticBaseSettingsSource, SettingsConfigDict
 
 from cds_service.errors import UserError
+
+#: A web origin for CSP ``frame-ancestors``: scheme, host and optional port, nothing else.
+_ORIGIN = re.compile(r"https?://[A-Za-z0-9.-]+(:[0-9]{1,5})?")
 
 
 class _Section(BaseModel):
@@ -47,6 +51,21 @@ class ServerSettings(_Section):
     @classmethod
     def _strip_slash(cls, v: str) -> str:
         return v.rstrip("/")
+
+    #: Origins (``https://host[:port]``) whose pages may show the trend page in a frame; empty:
+    #: no page may frame it (CSP ``frame-ancestors 'none'``, ``X-Frame-Options: DENY``).
+    trend_frame_ancestors: list[str] = Field(default_factory=list)
+
+    @field_validator("trend_frame_ancestors")
+    @classmethod
+    def _origins(cls, values: list[str]) -> list[str]:
+        for value in values:
+            if not _ORIGIN.fullmatch(value):
+                raise ValueError(
+                    f"server.trend_frame_ancestors: {value[:80]!r} is not an origin such as "
+                    "https://ehr.example.org or https://ehr.example.org:8443"
+                )
+        return values
 
     @model_validator(mode="after")
     def _room_for_small_calls(self) -> ServerSettings:

@@ -14,6 +14,13 @@ most ``server.max_large_calls`` large calls (body over ``server.large_call_bytes
 once; :class:`LargeCallGate` refuses the next with 503 and Retry-After, which is kept below
 the number of threads so that small calls always find a worker without a large one.
 
+The interpreter's lock is still one: what holds it longest decides how late ``/healthz``
+answers. For a large call that is the parse of its body (one C call) and, without care, the
+cyclic collector's passes over everything the call parsed (each a second or more at 100,000
+Observations). :func:`collector_held` keeps the collector off for the whole of a large call
+(the parsed data forms no cycles and is freed by reference counting when the call ends, so
+no pass is needed); small calls pause it only while parsing and ingesting, as before.
+
 Context variables (the request id of the log lines) travel with the call: the coroutine is
 handed over by ``run_coroutine_threadsafe``, whose callback runs in a copy of the caller's
 context.
@@ -22,9 +29,11 @@ context.
 from __future__ import annotations
 
 import asyncio
+import gc
 import threading
-from collections.abc import Awaitable, Callable
+from collections.abc import Awaitable, Callable, Iterator
 from concurrent.futures import Future
+from contextlib import contextmanager
 from typing import TypeVar
 
 import httpx
@@ -95,6 +104,30 @@ class EvaluationPool:
         workers, self._workers = self._workers, []
         for worker in workers:
             worker.close(timeout)
+
+
+_held = 0
+_held_lock = threading.Lock()
+_was_enabled = False
+
+
+@contextmanager
+def collector_held() -> Iterator[None]:
+    """The cyclic collector off until the last holder leaves (holders may overlap, from any
+    thread); it is switched back on only if it was on when the first holder came."""
+    global _held, _was_enabled
+    with _held_lock:
+        if _held == 0:
+            _was_enabled = gc.isenabled()
+            gc.disable()
+        _held += 1
+    try:
+        yield
+    finally:
+        with _held_lock:
+            _held -= 1
+            if _held == 0 and _was_enabled:
+                gc.enable()
 
 
 class LargeCallGate:
