@@ -30,6 +30,7 @@ from starlette.concurrency import run_in_threadpool
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
 from cds_service import logs, ops
+from cds_service.alerts import live as alerts
 from cds_service.config import Settings
 from cds_service.errors import UserError
 from cds_service.hooks.auth import Authenticator, AuthError
@@ -246,6 +247,10 @@ class _Unauthorized(Exception):
 
 
 def _install_routes(app: FastAPI, settings: Settings) -> None:
+    # The alert policy's settings, checked now (a refused configuration never serves).
+    alert_settings = alerts.settings_for(settings, SERVICES)
+    app.state.alert_settings = alert_settings
+
     @app.exception_handler(_Unauthorized)
     async def _unauthorized(_request: Request, exc: _Unauthorized) -> JSONResponse:
         return operation_outcome(
@@ -255,7 +260,7 @@ def _install_routes(app: FastAPI, settings: Settings) -> None:
     @app.get("/cds-services")
     async def list_services(request: Request) -> JSONResponse:
         await _authenticate(request, settings)
-        return JSONResponse(discovery())
+        return JSONResponse(alerts.annotate_discovery(discovery(), alert_settings))
 
     @app.post("/cds-services/{service_id}")
     async def call_service(service_id: str, request: Request) -> JSONResponse:
@@ -269,6 +274,9 @@ def _install_routes(app: FastAPI, settings: Settings) -> None:
                 raise HookError(404, f"no CDS service with id {service_id!r}")
             body = await read_json(request, settings.server.max_body_bytes)
             state = request.app.state
+            replay_call = request.headers.get(alerts.REPLAY_HEADER)
+            if replay_call is not None and not alerts.REPLAY_CALL.fullmatch(replay_call):
+                raise HookError(400, f"{alerts.REPLAY_HEADER} must be 1-64 letters, digits or -")
             outcome = await evaluate(
                 body,
                 settings=settings,
@@ -279,6 +287,7 @@ def _install_routes(app: FastAPI, settings: Settings) -> None:
                 service_id=service_id,
                 store=state.store,
                 authenticator=state.authenticator,
+                replay_call=replay_call,
             )
             status = 200
             return JSONResponse(outcome.response)
@@ -310,6 +319,7 @@ def _install_routes(app: FastAPI, settings: Settings) -> None:
                 body,
                 getattr(caller, "issuer", None),
                 datetime.now(UTC),
+                alerts.quiet_maker(alert_settings),
             )
         except UserError as exc:
             raise HookError(400, str(exc)) from None

@@ -17,7 +17,7 @@ from markupsafe import Markup
 from pydantic import BaseModel, Field
 
 from cds_service.hooks import snapshots
-from cds_service.web import pages, samples, trend
+from cds_service.web import pages, quality, samples, trend
 from cds_service.web.markdown import render_markdown
 
 STATIC_DIR = Path(__file__).parent / "static"
@@ -82,6 +82,7 @@ def _problem(status: int, message: str) -> JSONResponse:
 
 def create_router() -> APIRouter:
     router = APIRouter(include_in_schema=False)
+    router.include_router(quality.create_router())  # /quality (alert burden, feedback)
 
     @router.get("/", response_class=HTMLResponse)
     def workbench(request: Request) -> HTMLResponse:

@@ -25,6 +25,7 @@ def mg_dl_to_mmol_l(mg_dl: float, g_per_mol: float) -> float:
 
 # --- Unit conversions, cross-checked with pint -------------------------------------------
 
+
 def test_glucose_divisor_matches_molar_mass(th: Thresholds) -> None:
     # Dorwart & Chalmers 1975 divide glucose (mg/dL) by 18: pint with 180.16 g/mol gives 18.016.
     per_mmol = 1 / mg_dl_to_mmol_l(1, GLUCOSE_G_PER_MOL)
@@ -47,6 +48,7 @@ def test_saline_sodium_from_percent_matches_pint() -> None:
 
 
 # --- Serum osmolality ---------------------------------------------------------------------
+
 
 def test_calculated_osmolality_normal_adult(th: Thresholds) -> None:
     # Dorwart & Chalmers 1975 formula (from memory): Na 140, glucose 90, BUN 14
@@ -94,6 +96,7 @@ def test_osmolal_gap(th: Thresholds) -> None:
 
 # --- Glucose-corrected sodium -------------------------------------------------------------
 
+
 def test_katz_factor(th: Thresholds) -> None:
     # Katz 1973 (from memory): sodium falls 1.6 mmol/L per 100 mg/dL glucose above 100:
     # glucose 600 with sodium 120 -> corrected 128.
@@ -125,6 +128,7 @@ def test_corrected_sodium_rises_with_glucose(na: float, g1: float, g2: float) ->
 
 
 # --- Body water and the Adrogué–Madias formula ---------------------------------------------
+
 
 @pytest.mark.parametrize(
     ("age", "female", "fraction"),
@@ -171,6 +175,7 @@ def test_body_water_needs_positive_weight() -> None:
 
 
 # --- Urine ----------------------------------------------------------------------------------
+
 
 @pytest.mark.parametrize(
     ("una", "uk", "sna", "advice"),
