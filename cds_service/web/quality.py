@@ -126,7 +126,7 @@ def chart_svg(code: str, weeks: list[FindingFeedback]) -> str:
             }
         ),
     ):
-        fig = Figure(figsize=(6.4, 3.1), dpi=100)
+        fig = Figure(figsize=(5.6, 3.0), dpi=100)  # drawn at the size it is shown
         fig.patch.set_facecolor("white")
         ax = fig.add_subplot()
         ax.set_facecolor("#fffdf8")
@@ -179,10 +179,10 @@ def chart_svg(code: str, weeks: list[FindingFeedback]) -> str:
             bbox_to_anchor=(1.0, 1.0),
             fontsize=10,
             frameon=False,
-            title="Above bars:\nacceptance",
+            title="Over each bar:\n% accepted",
             title_fontsize=9,
         )
-        fig.subplots_adjust(left=0.11, right=0.76, top=0.95, bottom=0.2)
+        fig.subplots_adjust(left=0.12, right=0.72, top=0.95, bottom=0.2)
         out = io.StringIO()
         fig.savefig(out, format="svg", metadata={"Date": None, "Creator": "Tonicity"})
     svg = out.getvalue()
