@@ -5,50 +5,27 @@ JavaScript, the filter form works, and a screenshot is saved to
 
 from __future__ import annotations
 
-import threading
-import time
 from collections.abc import Iterator
 
 import pytest
 
 from tests.alerts.seed import seed
-from tests.web.test_browser import ARTIFACTS, _free_port, driver  # noqa: F401 - fixture
+from tests.kit.conftest import live_server
+from tests.web.test_browser import ARTIFACTS, driver  # noqa: F401 - fixture
 
 pytestmark = pytest.mark.browser
 
 
 @pytest.fixture(scope="module")
 def quality_url(tmp_path_factory: pytest.TempPathFactory) -> Iterator[str]:
-    import uvicorn
-
-    from cds_service.app import create_app
-    from cds_service.config import Settings
     from cds_service.store import Store
 
-    port = _free_port()
-    db = tmp_path_factory.mktemp("quality") / "tonicity.db"
-    store = Store(f"sqlite:///{db}")
+    folder = tmp_path_factory.mktemp("quality")
+    store = Store(f"sqlite:///{(folder / 'tonicity.db').as_posix()}")  # the server's store
     seed(store)
     store.close()
-    settings = Settings(
-        local_trial=True,
-        auth={"required": False},
-        storage={"url": f"sqlite:///{db}"},
-        server={"public_base_url": f"http://127.0.0.1:{port}", "port": port},
-    )
-    server = uvicorn.Server(
-        uvicorn.Config(create_app(settings), host="127.0.0.1", port=port, log_level="warning")
-    )
-    thread = threading.Thread(target=server.run, daemon=True)
-    thread.start()
-    deadline = time.monotonic() + 20
-    while not server.started:
-        if time.monotonic() > deadline or not thread.is_alive():
-            pytest.fail("uvicorn did not start")
-        time.sleep(0.05)
-    yield f"http://127.0.0.1:{port}"
-    server.should_exit = True
-    thread.join(timeout=10)
+    with live_server(folder, auth={"required": False}, local_trial=True) as url:
+        yield url
 
 
 def test_quality_page_renders_charts_and_tables_in_chromium(quality_url: str, driver) -> None:  # noqa: F811
