@@ -30,7 +30,7 @@ def quality_url(tmp_path_factory: pytest.TempPathFactory) -> Iterator[str]:
 
 def test_quality_page_renders_charts_and_tables_in_chromium(quality_url: str, driver) -> None:  # noqa: F811
     from selenium.webdriver.common.by import By
-    from selenium.webdriver.support.ui import Select
+    from selenium.webdriver.support.ui import Select, WebDriverWait
 
     ARTIFACTS.mkdir(exist_ok=True)
     driver.execute_cdp_cmd("Emulation.setScriptExecutionDisabled", {"value": True})
@@ -46,7 +46,7 @@ def test_quality_page_renders_charts_and_tables_in_chromium(quality_url: str, dr
         driver.save_screenshot(str(ARTIFACTS / "quality.png"))
         Select(driver.find_element(By.NAME, "service")).select_by_value("sodium-order-sign")
         driver.find_element(By.CSS_SELECTOR, "form.filters button").click()
-        assert "service=sodium-order-sign" in driver.current_url
+        WebDriverWait(driver, 20).until(lambda d: "service=sodium-order-sign" in d.current_url)
         blocks = driver.find_elements(By.CSS_SELECTOR, "section.finding-block h2")
         assert [b.text for b in blocks] == ["hypotonic-fluid-order"]
         driver.save_screenshot(str(ARTIFACTS / "quality-filtered.png"))
