@@ -11,7 +11,7 @@ import re
 import tomllib
 from datetime import UTC, tzinfo
 from pathlib import Path
-from typing import Any
+from typing import Any, Literal
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 from pydantic import (
@@ -58,6 +58,7 @@ class ServerSettings(_Section):
     @property
     def tz(self) -> tzinfo:
         return UTC if self.time_zone == "UTC" else ZoneInfo(self.time_zone)
+
     #: Threads that parse, ingest and evaluate hook calls off the event loop.
     evaluation_threads: int = Field(4, ge=2, le=64)
     #: A hook call whose body is larger counts as large (see max_large_calls).
@@ -178,6 +179,29 @@ class IngestSettings(_Section):
     pairing_hours: float = Field(2.0, gt=0)  # glucose/urea paired with the sodium draw
 
 
+class FindingAlertSettings(_Section):
+    """``[alerts.findings.<finding code>]``: one finding's alert settings."""
+
+    mode: Literal["show", "silent", "off"] = "show"
+    window_hours: float | None = Field(None, gt=0, le=24 * 31)
+    raise_to: Literal["warning", "critical"] | None = None
+    lower_to: Literal["info", "warning"] | None = None
+
+
+class AlertsConfig(_Section):
+    """``[alerts]``: repeat suppression, per-finding settings and silent go-live
+    (``cds_service/alerts``; finding codes and service ids are checked there)."""
+
+    suppression: bool = True
+    scope: Literal["patient", "patient-and-user"] = "patient"
+    silent_services: list[str] = Field(default_factory=list)
+    findings: dict[str, FindingAlertSettings] = Field(default_factory=dict)
+    managed_quiet_hours: float | None = Field(None, gt=0, le=24 * 7)
+    critical_quiet_max_hours: float | None = Field(None, gt=0, le=24)
+    unsafe_allow_silencing_critical: bool = False
+    quality_page: bool = True
+
+
 class Settings(BaseSettings):
     model_config = SettingsConfigDict(
         env_prefix="TONICITY_", env_nested_delimiter="__", extra="forbid"
@@ -189,6 +213,7 @@ class Settings(BaseSettings):
     fhir: FhirSettings = Field(default_factory=FhirSettings)
     logging: LoggingSettings = Field(default_factory=LoggingSettings)
     ingest: IngestSettings = Field(default_factory=IngestSettings)
+    alerts: AlertsConfig = Field(default_factory=AlertsConfig)
     #: Overrides of clinical thresholds by key (see clinical/data/thresholds.toml), and
     #: ``correction_guideline`` ("stricter", "europe" or "us").
     clinical: dict[str, float | str] = Field(default_factory=dict)

@@ -24,6 +24,7 @@ import httpx
 from pydantic import ValidationError
 
 from cds_service import logs, ops
+from cds_service.alerts import live as alerts
 from cds_service.clinical import engine
 from cds_service.clinical.findings import Finding, FindingCode
 from cds_service.config import Settings
@@ -39,7 +40,13 @@ from cds_service.hooks.access import (
     https_required,
     query_interaction,
 )
-from cds_service.hooks.cards import one_per_code, render_card, rests_on, suggested_tests
+from cds_service.hooks.cards import (
+    one_per_code,
+    render_card,
+    rests_on,
+    suggested_tests,
+    with_quieting_reasons,
+)
 from cds_service.hooks.fetch import fetch_all
 from cds_service.hooks.models import Card, HookRequest, HookResponse, Link, to_json
 from cds_service.hooks.prefetch import PrefetchState, check_prefetch
@@ -139,6 +146,8 @@ class Outcome:
     patient_id: str
     codes: list[str] = field(default_factory=list)
     unavailable: dict[str, str] = field(default_factory=dict)
+    #: Finding codes kept back by the alert policy (suppressed or silent), for the audit line.
+    kept_back: list[str] = field(default_factory=list)
 
 
 def resolve_service(service_id: str | None, hook: object) -> Service:
@@ -363,11 +372,13 @@ async def evaluate(
     service_id: str | None = None,
     store: Any = None,
     authenticator: Any = None,
+    replay_call: str | None = None,
 ) -> Outcome:
     """Evaluate one hook call (see module doc): ``settings``, ``thresholds`` and ``now`` are
     required; ``http`` + ``authenticator`` enable fetching from the client's FHIR server;
     ``store`` enables the card log and the trend snapshot; ``service_id`` None means the
-    service answering the body's hook."""
+    service answering the body's hook; ``replay_call`` marks a call of ``tonicity replay``
+    (logged as such, never suppressed, left out of the figures)."""
     call = parse_call(body, service_id)
     state = await gather_data(call, settings, http=http, caller=caller, authenticator=authenticator)
     _require(state)
@@ -388,6 +399,21 @@ async def evaluate(
     else:
         findings = engine.evaluate_orders(ctx, thresholds)
     findings = one_per_code(findings)
+    # Alert burden (cds_service/alerts): settings, overrides and repeat suppression decide
+    # which findings become cards; the others are logged with why.
+    alert = alerts.settings_for(settings, SERVICES)
+    gate = await alerts.gate(
+        findings,
+        store=store,
+        settings=settings,
+        alert=alert,
+        service_id=call.service.id,
+        patient_id=call.patient_id,
+        user_id=call.request.context.get("userId"),
+        now=now,
+        replay_call=replay_call,
+    )
+    findings = gate.shown
     unavailable = [
         f"{KEY_NAMES.get(k, k)}: {reason}" for k, reason in sorted(state.unavailable.items())
     ]
@@ -402,29 +428,43 @@ async def evaluate(
 
     def render(links: list[Link]) -> list[Card]:
         return [
-            render_card(
-                f,
-                now=now,
-                patient_id=call.patient_id,
-                unavailable=unavailable,
-                links=links if f is trend_owner else (),
-                tests=offered,
-                partial=[
-                    f"{KEY_NAMES.get(k, k)}: {state.partial.get(k, 'first page only')}"
-                    for k in ctx.partial_reads
-                    if rests_on(f.code, k)
-                ],
-                patient_known=ctx.patient.known,
-                source_url=f"{base}/findings/{f.code.value}",
-                order_context=order,
+            with_quieting_reasons(  # override reasons of the alert policy (cds_service/alerts)
+                render_card(
+                    f,
+                    now=now,
+                    patient_id=call.patient_id,
+                    unavailable=unavailable,
+                    links=links if f is trend_owner else (),
+                    tests=offered,
+                    partial=[
+                        f"{KEY_NAMES.get(k, k)}: {state.partial.get(k, 'first page only')}"
+                        for k in ctx.partial_reads
+                        if rests_on(f.code, k)
+                    ],
+                    patient_known=ctx.patient.known,
+                    source_url=f"{base}/findings/{f.code.value}",
+                    order_context=order,
+                ),
+                alerts.reason_displays(f.urgency.value, alert),
             )
             for f, offered in zip(findings, tests, strict=True)
         ]
 
     cards = render([snapshot.link] if snapshot else [])
-    if store is not None and cards:
+    if store is not None and (cards or gate.kept_back):
         client = _client_id(caller)
-        write = functools.partial(_record, store, settings, call, client_id=client, now=now)
+        kept = alerts.kept_back_rows(gate, client_id=client, now=now, replay_call=replay_call)
+        write = functools.partial(
+            _record,
+            store,
+            settings,
+            call,
+            client_id=client,
+            now=now,
+            gate=gate,
+            kept=kept,
+            replay_call=replay_call,
+        )
         if not await _in_log_writer(store, write, cards, snapshot) and snapshot is not None:
             cards = render([])  # its snapshot is not stored: no link to it
             await _in_log_writer(store, write, cards, None)
@@ -435,6 +475,7 @@ async def evaluate(
         patient_id=call.patient_id,
         codes=[c.source.topic.code for c in cards if c.source.topic],
         unavailable=dict(state.unavailable),
+        kept_back=[d.code for d in gate.kept_back],
     )
 
 
@@ -489,6 +530,9 @@ def _record(
     *,
     client_id: str | None,
     now: datetime,
+    gate: Any = None,
+    kept: list[CardLogRow] | None = None,
+    replay_call: str | None = None,
 ) -> bool:
     """Write the card log and the trend snapshot in one transaction, without waiting for the
     disk (``Store.log_session``). False, and logged, when it failed: the cards still reach the
@@ -498,14 +542,16 @@ def _record(
         CardLogRow(
             card_uuid=card.uuid,
             service_id=call.service.id,
-            finding_code=card.source.topic.code if card.source.topic else "unknown",
+            finding_code=(code := card.source.topic.code if card.source.topic else "unknown"),
             indicator=card.indicator,
             patient_hash=patient_hash,
             client_id=client_id,
             created_at=now,
+            **_alert_fields(gate, code, card, replay_call),
         )
         for card in cards
     ]
+    rows += kept or []
     try:
         with store.log_session() as s:
             if snapshot is not None:
@@ -517,6 +563,18 @@ def _record(
         _log.exception("card log and trend snapshot not written")
         return False
     return True
+
+
+def _alert_fields(gate: Any, code: str, card: Card, replay_call: str | None) -> dict[str, Any]:
+    """The alert-burden columns of a shown card's log row (``cds_service/alerts``)."""
+    decision = gate.decision(code) if gate is not None else None
+    return dict(
+        why=decision.why if decision else None,
+        inputs_digest=decision.inputs_digest if decision else None,
+        user_hash=gate.scope.user_hash if gate is not None and gate.scope else None,
+        replay_call=replay_call,
+        suggestion_ids=tuple(s.uuid for s in card.suggestions if s.uuid),
+    )
 
 
 def _count_cards(cards: list[Card]) -> None:

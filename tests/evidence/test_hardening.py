@@ -137,7 +137,15 @@ def test_feedback_timestamps_that_cannot_be_converted_are_400(trial: Any, stamp:
 
 @pytest.mark.parametrize("stamp", ["9999-12-31T23:59:59+00:00", "0001-01-01T00:00:00Z"])
 def test_feedback_timestamps_at_the_edges_that_fit_are_stored(trial: Any, stamp: str) -> None:
-    body = {"feedback": [{"card": "c-1", "outcome": "accepted", "outcomeTimestamp": stamp}]}
+    from tests.hooks.fhirdata import hook_request, sodium_series
+
+    # Feedback is checked against the card log: answer a card this service returned.
+    (card, *_) = trial.post(PATH, json=hook_request(observations=sodium_series(127))).json()[
+        "cards"
+    ]
+    body = {
+        "feedback": [{"card": card["uuid"], "outcome": "overridden", "outcomeTimestamp": stamp}]
+    }
     r = trial.post(FEEDBACK, json=body)
     assert (r.status_code, r.json()) == (200, {"stored": 1})
 
