@@ -18,6 +18,7 @@ COMMANDS: dict[str, tuple[str, str]] = {
     "replay": ("replay", "post the sample requests to a running deployment and check them"),
     "keys": ("keys", "generate a client key pair and JWKS, or sign a test token"),
     "feedback-report": ("feedback_report", "acceptance and override rates per finding code"),
+    "rehearse": ("rehearse", "replay a Bulk Data export: alert burden and missed overcorrections"),
 }
 
 
