@@ -300,6 +300,7 @@ def rehearse(opts: Options, stream: IO[str] | None = None) -> dict[str, Any]:
     for d in (spool, parts, results):
         d.mkdir(parents=True, exist_ok=True)
     started = time.monotonic()
+    marks = [started]
     reused = 0
     executor = _executor(opts)
     try:
@@ -313,6 +314,7 @@ def rehearse(opts: Options, stream: IO[str] | None = None) -> dict[str, Any]:
             manifest.add({"kind": "file", **summary})
         read = [{k: v for k, v in line.items() if k != "kind"} for line in manifest.find("file")]
         read.sort(key=lambda f: f["file"])
+        marks.append(time.monotonic())
         layout = manifest.find("partitioned")
         if not layout:
             counts = export.count_patients(spool)
@@ -330,6 +332,7 @@ def rehearse(opts: Options, stream: IO[str] | None = None) -> dict[str, Any]:
             layout = manifest.find("partitioned")
         n_parts = layout[0]["partitions"]
         per_part = {int(k): v for k, v in layout[0]["patients"].items()}
+        marks.append(time.monotonic())
         finished = {
             line["part"]
             for line in manifest.find("partition")
@@ -358,6 +361,7 @@ def rehearse(opts: Options, stream: IO[str] | None = None) -> dict[str, Any]:
             if opts.stop_after is not None and done_now >= opts.stop_after:
                 raise Stopped(f"stopped after {done_now} partitions")
         progress.add(0, final=True)
+        marks.append(time.monotonic())
     finally:
         executor.close()
     merged = tally.merge(
@@ -369,6 +373,10 @@ def rehearse(opts: Options, stream: IO[str] | None = None) -> dict[str, Any]:
         "partitions": n_parts,
         "partitions_reused": reused,
         "seconds": round(time.monotonic() - started, 2),
+        "stage_seconds": {
+            name: round(b - a, 3)
+            for name, a, b in zip(("read", "partition", "replay"), marks, marks[1:], strict=False)
+        },
     }
     built = report.build(merged, read, opts, run)
     report.write_all(built, merged, read, out, opts.cases)
