@@ -111,6 +111,7 @@ def context_at(
         patient_id=patient_id,
         draft_orders=drafts,
         report_lines=False,
+        partial_reads=state.partial,
     ).context
 
 
@@ -223,6 +224,7 @@ def _breach(
         "detection_action": action,
         "shown_before": sorted({s.code for s in before}),
         "warned_before": bool(warnings),
+        "warnings_before": sorted({s.code for s in warnings}),
         "warning_lead_minutes": (
             int((rise.end.time - min(s.at for s in warnings)).total_seconds() // 60)
             if warnings

@@ -128,6 +128,7 @@ def build(merged: dict[str, Any], read: list[dict[str, Any]], opts: Any, run: di
                     if b["warning_lead_minutes"] is None
                     else round(b["warning_lead_minutes"] / 60, 1)
                 ),
+                "warning_cards_before_complete": b["warnings_before"],
                 "cards_shown_before_complete": b["shown_before"],
             }
         )
@@ -250,6 +251,7 @@ BREACH_COLUMNS = [
     "detected_minutes_after_draw",
     "warned_before_complete",
     "warning_lead_hours",
+    "warning_cards_before_complete",
     "cards_shown_before_complete",
 ]
 
@@ -282,12 +284,19 @@ def write_all(
 def _table(headers: list[str], rows: list[list[Any]], caption: str) -> str:
     head = "".join(f"<th scope='col'>{escape(h)}</th>" for h in headers)
     body = "".join(
-        "<tr>" + "".join(f"<td>{escape(_cell(c))}</td>" for c in row) + "</tr>" for row in rows
+        "<tr>" + "".join(f"<td{_align(c)}>{escape(_cell(c))}</td>" for c in row) + "</tr>"
+        for row in rows
     )
     return (
         f"<table><caption>{escape(caption)}</caption><thead><tr>{head}</tr></thead>"
         f"<tbody>{body}</tbody></table>"
     )
+
+
+def _align(v: Any) -> str:
+    """Numbers right-aligned (the default), words left-aligned."""
+    numeric = isinstance(v, int | float) and not isinstance(v, bool)
+    return "" if numeric or v is None else " class='t'"
 
 
 def _cell(v: Any) -> str:
@@ -300,7 +309,7 @@ def _cell(v: Any) -> str:
     if isinstance(v, int):
         return f"{v:,}"
     if isinstance(v, list):
-        return ", ".join(map(str, v)) or "none"
+        return ", ".join(map(str, v)) or "–"
     return str(v)
 
 
@@ -316,7 +325,7 @@ border-bottom:2px solid #d5dbe1;padding-bottom:.2rem}
 table{border-collapse:collapse;margin:.6rem 0 1.2rem;font-size:.9rem;width:100%}
 caption{text-align:left;font-weight:600;padding:.3rem 0}
 th,td{border:1px solid #d5dbe1;padding:.25rem .45rem;text-align:right}
-th:first-child,td:first-child{text-align:left}
+th:first-child,td:first-child,td.t{text-align:left}
 thead th{background:#f0f3f6}
 svg{max-width:100%;height:auto;display:block;margin-top:.6rem}
 .note{font-size:.9rem;color:#3e4c59}
@@ -444,7 +453,8 @@ def _section_episodes(r: dict[str, Any]) -> list[str]:
     table = _table(
         ["severity", "episodes", "share"],
         [[s, eps[s], f"{100 * eps[s] / n:.1f} %"] for s in SEVERITIES],
-        "Episodes (runs of consecutive sodium below 135 mmol/L) starting in range, adults",
+        "Episodes (runs of consecutive low sodium, below the sodium_lower_normal threshold) "
+        "starting in range, adults",
     )
     return ["<h2>Hyponatremic episodes</h2>", chart, table]
 
@@ -471,7 +481,7 @@ def _section_breaches(r: dict[str, Any]) -> list[str]:
             "detected (min after draw)",
             "warned before",
             "lead (h)",
-            "cards shown before",
+            "warning cards before",
         ],
         [
             [
@@ -487,7 +497,7 @@ def _section_breaches(r: dict[str, Any]) -> list[str]:
                 b["detected_minutes_after_draw"],
                 b["warned_before_complete"],
                 b["warning_lead_hours"],
-                b["cards_shown_before_complete"],
+                b["warning_cards_before_complete"],
             ]
             for b in rows
         ],
