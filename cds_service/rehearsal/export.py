@@ -173,7 +173,9 @@ def partition(spool_dir: Path, parts_dir: Path, partitions: int, threads: int) -
 
     n = int(partitions)
     glob = str(spool_dir / "*.parquet")
-    con = duckdb.connect(config={"threads": max(1, int(threads))})
+    # a fixed memory limit (DuckDB spills to the temporary folder beyond it): the peak does
+    # not grow with the export
+    con = duckdb.connect(config={"threads": max(1, int(threads)), "memory_limit": "256MB"})
     try:
         con.execute("SET preserve_insertion_order = false")
         # COPY's target and SET's value cannot be parameters: our own paths, quotes doubled
@@ -196,7 +198,7 @@ def count_patients(spool_dir: Path) -> int:
     """Distinct patient ids in the spool."""
     import duckdb
 
-    con = duckdb.connect()
+    con = duckdb.connect(config={"memory_limit": "128MB"})
     try:
         row = con.execute(
             "SELECT count(DISTINCT pid) FROM read_parquet(?)", [str(spool_dir / "*.parquet")]
@@ -213,7 +215,7 @@ def patients_of(parts_dir: Path, part: int) -> Iterator[tuple[str, list[bytes]]]
     folder = parts_dir / f"part={part}"
     if not folder.is_dir():
         return
-    con = duckdb.connect(config={"threads": 1})
+    con = duckdb.connect(config={"threads": 1, "memory_limit": "128MB"})
     try:
         cur = con.execute(
             "SELECT pid, list(line ORDER BY src, line_no) FROM read_parquet(?) "

@@ -209,7 +209,11 @@ def _breach(
     else:
         assert status.rise_48h is not None
         window, rise, limit = 48, status.rise_48h, limits.limit_48h
-    before = [s for s in history if rise.start.time <= s.at < rise.end.time]
+    before = [
+        s
+        for s in history
+        if rise.start.time <= s.at < rise.end.time and not getattr(s, "silent", False)
+    ]
     warnings = [s for s in before if s.code in WARNING_CODES]
     return episode.first_low.source_id, {
         "window_hours": window,
@@ -289,8 +293,11 @@ def _replay(
             found.add(breach[0])
             out.breaches.append(breach[1])
     for d in decisions:
-        if d.action == "show":
-            history.append(Shown(d.code, d.indicator, d.inputs_digest, event.at))
+        # what later repeat suppression counts as seen: a shown card, and (once the policy has
+        # silent mode) a silent one that would have been shown, kept apart as ``silent``
+        if getattr(d, "seen", d.action == "show"):
+            extra = {"silent": True} if d.action == "silent" else {}
+            history.append(Shown(d.code, d.indicator, d.inputs_digest, event.at, **extra))
     if trace:
         out.trace.append(
             Call(event.hook, event.at, [(d.code, d.indicator, d.action) for d in decisions])

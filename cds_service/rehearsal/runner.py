@@ -77,10 +77,9 @@ def alert_settings(settings: Any) -> Any:
     """The configuration's alert-burden settings, as the live service builds them."""
     from cds_service.alerts.policy import AlertSettings
 
-    build = getattr(AlertSettings, "from_settings", None)
-    section = getattr(settings, "alerts", None)
-    if build is not None and section is not None:
-        return build(section)
+    build = getattr(AlertSettings, "from_settings", None)  # reads settings.alerts itself
+    if build is not None:
+        return build(settings)
     return AlertSettings.default()
 
 
