@@ -240,12 +240,15 @@ def _install_error_handlers(app: FastAPI) -> None:
         return operation_outcome(500, "internal error; the request was not evaluated")
 
 
-async def _authenticate(request: Request, settings: Settings) -> Any:
-    """The calling client, or a 401 OperationOutcome as an exception."""
+async def _authenticate(request: Request, settings: Settings, *also_accept: str) -> Any:
+    """The calling client, or a 401 OperationOutcome as an exception. The token's ``aud`` is
+    this endpoint's public URL (or one of ``also_accept``)."""
     authenticator = request.app.state.authenticator
     endpoint = f"{settings.server.public_base_url}{request.url.path}"
     try:
-        return await authenticator.authenticate(request.headers.get("authorization"), endpoint)
+        return await authenticator.authenticate(
+            request.headers.get("authorization"), endpoint, *also_accept
+        )
     except AuthError as exc:
         raise _Unauthorized(exc.reason or "authentication failed") from None
 
@@ -301,7 +304,9 @@ def _install_routes(app: FastAPI, settings: Settings) -> None:
 
     @app.post("/cds-services/{service_id}/feedback")
     async def feedback(service_id: str, request: Request) -> JSONResponse:
-        caller = await _authenticate(request, settings)
+        # CDS clients commonly sign feedback for the service URL they called: accepted too.
+        service_url = f"{settings.server.public_base_url}/cds-services/{service_id}"
+        caller = await _authenticate(request, settings, service_url)
         if service_id not in SERVICES:
             raise HookError(404, f"no CDS service with id {echo(service_id)}")
         require_json_media_type(request)
