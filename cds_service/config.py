@@ -9,8 +9,10 @@ from __future__ import annotations
 
 import re
 import tomllib
+from datetime import UTC, tzinfo
 from pathlib import Path
 from typing import Any
+from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 from pydantic import (
     BaseModel,
@@ -38,6 +40,24 @@ class ServerSettings(_Section):
     port: int = Field(8080, ge=1, le=65535)
     max_body_bytes: int = Field(5_000_000, ge=1024)
     trend_link_ttl_hours: float = Field(12.0, gt=0)
+    #: IANA time zone in which pages show times to clinicians (UTC stays on hover and in
+    #: the tables); checked at start.
+    time_zone: str = "UTC"
+
+    @field_validator("time_zone")
+    @classmethod
+    def _known_zone(cls, v: str) -> str:
+        try:
+            ZoneInfo(v)
+        except (ZoneInfoNotFoundError, ValueError) as exc:
+            raise ValueError(
+                f"unknown time zone {v!r} (use an IANA name such as Europe/Vienna)"
+            ) from exc
+        return v
+
+    @property
+    def tz(self) -> tzinfo:
+        return UTC if self.time_zone == "UTC" else ZoneInfo(self.time_zone)
     #: Threads that parse, ingest and evaluate hook calls off the event loop.
     evaluation_threads: int = Field(4, ge=2, le=64)
     #: A hook call whose body is larger counts as large (see max_large_calls).

@@ -7,7 +7,7 @@ like any other client would, with ``fetch``.
 from __future__ import annotations
 
 import json
-from datetime import UTC, datetime
+from datetime import UTC, datetime, tzinfo
 from pathlib import Path
 from typing import Any
 
@@ -17,9 +17,10 @@ from markupsafe import Markup
 from pydantic import BaseModel, Field, ValidationError
 from starlette.concurrency import run_in_threadpool
 
+from cds_service.clinical.findings import FindingCode
 from cds_service.hooks import bodies, snapshots
 from cds_service.hooks.service import HookError
-from cds_service.web import pages, samples, trend
+from cds_service.web import findings, pages, samples, trend
 from cds_service.web.markdown import render_markdown
 
 STATIC_DIR = Path(__file__).parent / "static"
@@ -176,6 +177,25 @@ def create_router() -> APIRouter:
             return record
         return await run_in_threadpool(_build, record, hook)
 
+    @router.post("/workbench/understand")
+    async def understand_request(request: Request) -> Response:
+        """The record as Tonicity read it, for the request the page sends (see understand)."""
+        from cds_service.clinical.thresholds import load_thresholds
+        from cds_service.web.understand import understand
+
+        record = await _workbench_body(request)
+        if isinstance(record, Response):
+            return record
+        settings = _settings(request)
+        thresholds = getattr(request.app.state, "thresholds", None) or load_thresholds()
+        try:
+            body = await understand(
+                record, settings=settings, thresholds=thresholds, now=datetime.now(UTC)
+            )
+        except HookError as exc:
+            return _problem(exc.status if 400 <= exc.status < 500 else 400, exc.message)
+        return JSONResponse(body)
+
     @router.post("/workbench/render")
     async def render(request: Request) -> Response:
         payload = await _workbench_body(request)
@@ -189,8 +209,18 @@ def create_router() -> APIRouter:
             return _problem(413, "too much text to render")
         return JSONResponse({"html": [render_markdown(t) for t in body.texts]})
 
+    @router.get("/findings/{code}", response_class=HTMLResponse)
+    def finding_page(code: str, request: Request) -> HTMLResponse:
+        """The page behind every card's ``source.url`` (see :mod:`cds_service.web.findings`)."""
+        try:
+            finding = FindingCode(code)
+        except ValueError:
+            return _plain(404, "Unknown finding", "Tonicity has no finding with this code.")
+        context = findings.page_context(finding, getattr(request.app.state, "thresholds", None))
+        return HTMLResponse(pages.render("findings.html", **context), headers=_PAGE_HEADERS)
+
     @router.get("/trend/{token}", response_class=HTMLResponse)
-    def trend_page(token: str, request: Request) -> HTMLResponse:
+    def trend_page(token: str, request: Request, view: str = "episode") -> HTMLResponse:
         now = datetime.now(UTC)
         try:
             payload, until = snapshots.load_snapshot_until(request.app.state.store, token, now)
@@ -209,25 +239,39 @@ def create_router() -> APIRouter:
                 "Trend not found",
                 "There is no trend page at this address. Check that the link was copied whole.",
             )
-        return HTMLResponse(_trend_html(token, payload, until), headers=_trend_headers(request))
+        if view not in ("episode", "stay"):
+            view = "episode"
+        html = _trend_html(token, payload, until, _time_zone(request), view)
+        return HTMLResponse(html, headers=_trend_headers(request))
 
     return router
 
 
-def _trend_html(token: str, payload: dict[str, Any], until: datetime) -> str:
-    svg = trend.chart_svg(snapshots.token_hash(token), payload) if payload.get("sodium") else ""
+def _time_zone(request: Request) -> tzinfo:
+    s = _settings(request)
+    return s.server.tz if s is not None else UTC
+
+
+def _trend_html(token: str, payload: dict[str, Any], until: datetime, tz: tzinfo, view: str) -> str:
+    has_sodium = bool(payload.get("sodium"))
+    svg = trend.chart_svg(snapshots.token_hash(token), payload, tz, view) if has_sodium else ""
     return pages.render(
         "trend.html",
         svg=Markup(svg),  # noqa: S704 - matplotlib's SVG from our own numbers and labels
-        evaluated=trend.when(payload.get("now")),
-        expires=f"on {trend.when(until.isoformat())}",
-        description=trend.describe(payload),
-        rows=(rows := trend.sodium_rows(payload)),
+        evaluated=trend.when(payload.get("now"), tz),
+        expires=f"on {trend.when(until.isoformat(), tz)}",
+        description=trend.describe(payload, tz, view),
+        rows=(rows := trend.sodium_rows(payload, tz)),
         notes=any(r.note for r in rows),
         markers=payload.get("markers") or [],
         starts=payload.get("starts") or [],
         limits=payload.get("limits"),
         findings=payload.get("findings") or [],
+        zone=trend.zone_name(tz),
+        tz=tz,
+        view=view,
+        hidden=trend.hidden_before(payload, view) if has_sodium else 0,
+        has_episode=bool((payload.get("limits") or {}).get("episode_start")),
     )
 
 

@@ -403,7 +403,8 @@ def test_engine_laws(labs, na, fl, dr, sex, weight, conditions, history) -> None
 
 
 def test_supplemental_siadh_criteria_from_fractional_excretions(th: Thresholds) -> None:
-    # Fenske 2008 (from memory): FE urate > 12 % supports SIADH; Spasovski 2014 (from memory):
+    # Fenske 2008 (JCEM 93:2991, Abstract, Results: FE urate cut-off 12 %) supports SIADH;
+    # Spasovski 2014 (supplemental criteria table, not yet read in the original):
     # FE urea > 55 %, uric acid < 4 mg/dL. FE urate = 40 x 0.8 / (3 x 60) = 17.8 %;
     # FE urea = 600 x 0.8 / (8 x 60) = 100 %.
     ctx = make_ctx(

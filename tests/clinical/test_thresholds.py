@@ -155,10 +155,9 @@ def test_malformed_entries_are_rejected_on_load() -> None:
 
 
 def test_common_practice_citation_reads_plainly() -> None:
-    # A fact of the trade has no text to check; a recalled figure is said so in one phrase.
+    # A fact of the trade has no text to check against: it reads the same either way, and a
+    # card never says "from memory" (the knowledge report lists what is unchecked).
     from cds_service.clinical._data import cite
 
     assert cite("common practice") == "Common practice (no single published source)"
-    assert cite("common practice", from_memory=True) == (
-        "Common practice (no single published source; the figure is from memory)"
-    )
+    assert cite("common practice", from_memory=True) == cite("common practice")
