@@ -173,7 +173,10 @@ def create_app(settings: Settings) -> FastAPI:
         title="Tonicity",
         description="Hyponatremia work-up and sodium order safety as CDS Hooks 2.0 services.",
         lifespan=lifespan,
+        docs_url=None,  # served below from the package, not from a CDN
+        redoc_url=None,
     )
+    _install_docs(app)
     app.state.settings = settings
     # CDS Hooks 2.0 (Security and Safety, CORS): browser-based CDS clients need CORS. Any
     # origin may ask, without credentials: calls authenticate with a bearer JWT the client
@@ -191,6 +194,41 @@ def create_app(settings: Settings) -> FastAPI:
     _install_routes(app, settings)
     _include_routers(app)
     return app
+
+
+#: Swagger UI's files, from the swagger-ui-bundle package (Apache-2.0), so that ``/docs``
+#: works on a hospital network without internet access.
+_DOCS_ASSETS = {
+    "swagger-ui-bundle.js": "text/javascript; charset=utf-8",
+    "swagger-ui.css": "text/css; charset=utf-8",
+}
+
+
+def _install_docs(app: FastAPI) -> None:
+    from fastapi.openapi.docs import get_swagger_ui_html
+    from fastapi.responses import FileResponse, HTMLResponse
+    from swagger_ui_bundle import swagger_ui_path
+
+    @app.get("/docs", include_in_schema=False)
+    async def docs() -> HTMLResponse:
+        return get_swagger_ui_html(
+            openapi_url=app.openapi_url or "/openapi.json",
+            title="Tonicity - API",
+            swagger_js_url="/docs-assets/swagger-ui-bundle.js",
+            swagger_css_url="/docs-assets/swagger-ui.css",
+            swagger_favicon_url="/static/favicon.svg",
+        )
+
+    @app.get("/docs-assets/{name}", include_in_schema=False)
+    async def docs_asset(name: str) -> Any:
+        media = _DOCS_ASSETS.get(name)
+        if media is None:
+            return operation_outcome(404, "no such documentation asset")
+        return FileResponse(
+            f"{swagger_ui_path}/{name}",
+            media_type=media,
+            headers={"Cache-Control": "public, max-age=86400"},
+        )
 
 
 def _http_client(settings: Settings) -> httpx.AsyncClient:
