@@ -54,7 +54,13 @@ class Citation:
 
     @property
     def reference(self) -> str:
-        """The printed reference: text, then DOI, PMID or URL when known."""
+        """The printed reference: text, then its DOI, PMID or URL when they were seen (a
+        recalled identifier is not printed: a wrong one would send a reader elsewhere)."""
+        return self.text.rstrip(".") + (f". {self.identifiers}" if self.id_checked else "")
+
+    @property
+    def identifiers(self) -> str:
+        """DOI and PMID (or the URL when there is neither), as printed."""
         ids = []
         if self.doi:
             ids.append(f"doi:{self.doi}")
@@ -62,7 +68,7 @@ class Citation:
             ids.append(f"PMID {self.pmid}")
         if self.url and not ids:
             ids.append(self.url)
-        return ". ".join([self.text.rstrip("."), *ids])
+        return ". ".join(ids)
 
 
 def _optional_str(where: str, entry: dict[str, Any], key: str) -> str:
