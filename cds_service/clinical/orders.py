@@ -487,7 +487,8 @@ def vaptan_finding(o: OrderContext) -> Finding | None:
     first = matches[0]
     cautions = [
         CAUTION,
-        "Overcorrection risk: check sodium every 6-8 h in the first 24-48 h (from memory).",
+        "Overcorrection risk: check sodium every 6-8 h in the first 24-48 h, or as the "
+        "product label and local protocol say.",
         "Do not restrict fluid in the first 24 h; let the patient drink to thirst.",
         "Liver injury reported with tolvaptan: avoid in liver disease; limit to 30 days.",
         "Not for hypovolemic hyponatremia, nor for urgent treatment of severe symptoms.",

@@ -182,10 +182,12 @@ def build_context(
     draft_orders: Iterable[Any] = (),
     selections: Collection[str] = (),
     report_lines: bool = True,
+    partial_reads: Collection[str] = (),
 ) -> Ingested:
     """The ClinicalContext for one patient at ``now``, and what was understood of each resource
     (``report_lines`` False: the same context, an empty report, for callers that do not show
-    it)."""
+    it). ``partial_reads``: the queries (prefetch keys) of which only the first page(s) were
+    read; the context carries them so that the cards resting on them say so."""
     now = _aware(now)
     report = ReportBuilder(enabled=report_lines)
     collected = collect(resources, report)
@@ -214,6 +216,7 @@ def build_context(
         conditions=tuple(_unique_conditions(record.conds)),
         draft_fluids=tuple(d for d in drafts if isinstance(d, DraftFluid)),
         draft_medications=tuple(d for d in drafts if isinstance(d, DraftMedication)),
+        partial_reads=tuple(sorted(set(partial_reads))),
     )
     return Ingested(ctx, report.build())
 
