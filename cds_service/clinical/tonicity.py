@@ -83,6 +83,16 @@ def _corrected(c: Chemistry) -> tuple[list[Value], list[str]]:
     )
 
 
+_INEFFECTIVE = {
+    False: "It is an ineffective osmole: it crosses cell membranes, holds no water outside cells "
+    "and does not protect cells from swelling, so tonicity is judged without it (2014 European "
+    "guideline, section 7.1).",
+    True: "Both are ineffective osmoles: they cross cell membranes, hold no water outside cells "
+    "and do not protect cells from swelling, so tonicity is judged without them (2014 European "
+    "guideline, section 7.1).",
+}
+
+
 def _set_aside_lines(c: Chemistry) -> list[str]:
     """Which osmoles were set aside from the measured osmolality, and why."""
     measured, effective = c.measured_osmolality, c.call.effective_osmolality
@@ -93,14 +103,7 @@ def _set_aside_lines(c: Chemistry) -> list[str]:
     if parts:
         lines.append(
             f"Effective osmolality {num(effective)} mOsm/kg = measured {num(measured)} minus "
-            f"{' and '.join(parts)}. "
-            + (
-                "Urea and ethanol are ineffective osmoles: they cross"
-                if len(parts) > 1
-                else f"{parts[0].split(' ')[0].capitalize()} is an ineffective osmole: it crosses"
-            )
-            + " cell membranes, holds no water outside cells and does not protect cells from "
-            "swelling, so tonicity is judged without it (2014 European guideline, section 7.1)."
+            f"{' and '.join(parts)}. " + _INEFFECTIVE[len(parts) > 1]
         )
     if c.val(Analyte.UREA_NITROGEN) is None:
         lines.append(
@@ -167,6 +170,15 @@ def _unknown(c: Chemistry, head: str) -> _Part:
     )
 
 
+def _urine_tests(c: Chemistry) -> tuple[str, ...]:
+    """Urine tests still worth ordering: not urine sodium once the urine is known to be dilute
+    (it is not interpreted then; Spasovski 2014 section 7.2)."""
+    uosm = c.val(Analyte.URINE_OSMOLALITY)
+    if uosm is not None and uosm <= c.th.urine_osmolality_dilute_at_most:
+        return ()
+    return c.missing(Analyte.URINE_OSMOLALITY, Analyte.URINE_SODIUM)
+
+
 def _hypotonic(c: Chemistry, head: str) -> _Part:
     measured, effective = c.measured_osmolality, c.call.effective_osmolality
     if c.call.residual:
@@ -186,7 +198,7 @@ def _hypotonic(c: Chemistry, head: str) -> _Part:
         FindingCode.HYPOTONIC,
         summary,
         details=[*_set_aside_lines(c), *volume_hint_lines(c.ctx)],
-        missing=c.missing(Analyte.URINE_OSMOLALITY, Analyte.URINE_SODIUM),
+        missing=_urine_tests(c),
         next_steps=[
             "Interpret urine osmolality first, then urine sodium only if urine osmolality is "
             f"above {num(c.th.urine_osmolality_dilute_at_most)} mOsm/kg (2014 European "
@@ -209,9 +221,7 @@ def _hypotonic(c: Chemistry, head: str) -> _Part:
                 part.details.append(
                     "No measured osmolality: this rests on the corrected sodium and is provisional."
                 )
-                part.missing = c.missing(
-                    Analyte.OSMOLALITY, Analyte.URINE_OSMOLALITY, Analyte.URINE_SODIUM
-                )
+                part.missing = (*c.missing(Analyte.OSMOLALITY), *_urine_tests(c))
         else:
             part.details.append("Glucose is raised but osmolality is low: hypotonic despite it.")
     return part

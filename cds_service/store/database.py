@@ -2,7 +2,9 @@
 
 from __future__ import annotations
 
+import sqlite3
 import threading
+import time
 from collections.abc import Iterator
 from concurrent.futures import ThreadPoolExecutor
 from contextlib import contextmanager
@@ -122,9 +124,19 @@ _RELAXED = "tonicity_synchronous_normal"
 
 def _sqlite_pragmas(dbapi_connection, _record) -> None:  # type: ignore[no-untyped-def]
     cur = dbapi_connection.cursor()
-    cur.execute("PRAGMA journal_mode=WAL")
-    cur.execute("PRAGMA synchronous=FULL")  # a 200 for feedback means it is on disk
     cur.execute("PRAGMA busy_timeout=30000")
+    # Switching a new file to WAL needs a moment of exclusive access, and SQLite may answer
+    # "database is locked" at once rather than wait in the busy handler: two processes that
+    # open an empty database together (replicas starting at once) retry for a while.
+    for attempt in range(300):
+        try:
+            cur.execute("PRAGMA journal_mode=WAL")
+            break
+        except sqlite3.OperationalError as exc:
+            if "locked" not in str(exc) or attempt == 299:
+                raise
+            time.sleep(0.1)
+    cur.execute("PRAGMA synchronous=FULL")  # a 200 for feedback means it is on disk
     cur.close()
 
 

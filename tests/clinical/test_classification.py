@@ -503,3 +503,24 @@ def test_pseudohyponatremia_gap_names_lipids_before_toxic_alcohols(th: Threshold
     causes = [d for d in gap.details if d.startswith("- ")]
     assert "lipids or proteins" in causes[0] and "alcohols" in causes[-1]
     assert gap.next_steps[0].startswith("Check triglycerides")
+
+
+def test_dilute_urine_does_not_ask_for_urine_sodium(th: Thresholds) -> None:
+    # Spasovski 2014 s. 7.2: urine sodium is interpreted only when urine osmolality > 100, so
+    # it is not suggested once the urine is known to be dilute.
+    found = by_code(evaluate_workup(make_ctx({**BASE, A.URINE_OSMOLALITY: 100}), th))
+    assert "urine_sodium" not in found[C.HYPOTONIC].missing
+    found = by_code(evaluate_workup(make_ctx({**BASE, A.URINE_OSMOLALITY: 100.1}), th))
+    assert "urine_sodium" in found[C.HYPOTONIC].missing
+
+
+def test_set_aside_wording_names_each_osmole(th: Thresholds) -> None:
+    both = make_ctx(
+        {A.SODIUM: 130, A.OSMOLALITY: 325, A.GLUCOSE: 90, A.UREA_NITROGEN: 14, A.ETHANOL: 230}
+    )
+    line = next(
+        d
+        for d in by_code(evaluate_workup(both, th))[C.HYPOTONIC].details
+        if d.startswith("Effective osmolality")
+    )
+    assert "Both are ineffective osmoles" in line and "ethanol" in line and "urea" in line

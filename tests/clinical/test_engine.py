@@ -354,6 +354,12 @@ analytes = st.dictionaries(
             A.CORTISOL,
             A.POTASSIUM,
             A.URIC_ACID,
+            A.ETHANOL,
+            A.FREE_T4,
+            A.EGFR,
+            A.CREATININE,
+            A.URINE_CREATININE,
+            A.URINE_URIC_ACID,
         ]
     ),
     st.one_of(st.floats(0.5, 2000), st.sampled_from([0.0, 1e-9, 1e7])),

@@ -95,6 +95,8 @@ def _mutate(body: Any, path: tuple[Any, ...], op: str, value: Any) -> Any:
         except (KeyError, IndexError, TypeError):
             return body
     last = path[-1]
+    if not isinstance(parent, dict | list):  # an earlier edit replaced a container by a scalar
+        return body
     try:
         current = parent[last]
     except (KeyError, IndexError, TypeError):
