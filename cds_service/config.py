@@ -7,6 +7,7 @@ Relative file paths in the TOML file (``jwks_file``) are resolved against the fi
 
 from __future__ import annotations
 
+import re
 import tomllib
 from datetime import UTC, tzinfo
 from pathlib import Path
@@ -24,6 +25,9 @@ from pydantic import (
 from pydantic_settings import BaseSettings, PydanticBaseSettingsSource, SettingsConfigDict
 
 from cds_service.errors import UserError
+
+#: A web origin for CSP ``frame-ancestors``: scheme, host and optional port, nothing else.
+_ORIGIN = re.compile(r"https?://[A-Za-z0-9.-]+(:[0-9]{1,5})?")
 
 
 class _Section(BaseModel):
@@ -54,11 +58,43 @@ class ServerSettings(_Section):
     @property
     def tz(self) -> tzinfo:
         return UTC if self.time_zone == "UTC" else ZoneInfo(self.time_zone)
+    #: Threads that parse, ingest and evaluate hook calls off the event loop.
+    evaluation_threads: int = Field(4, ge=2, le=64)
+    #: A hook call whose body is larger counts as large (see max_large_calls).
+    large_call_bytes: int = Field(1_000_000, ge=1024)
+    #: Large calls evaluated at once by this process; the next gets 503 with Retry-After.
+    max_large_calls: int = Field(2, ge=1)
+    #: Seconds a refused large call is told to wait (Retry-After).
+    busy_retry_after_seconds: int = Field(5, ge=1, le=600)
 
     @field_validator("public_base_url")
     @classmethod
     def _strip_slash(cls, v: str) -> str:
         return v.rstrip("/")
+
+    #: Origins (``https://host[:port]``) whose pages may show the trend page in a frame; empty:
+    #: no page may frame it (CSP ``frame-ancestors 'none'``, ``X-Frame-Options: DENY``).
+    trend_frame_ancestors: list[str] = Field(default_factory=list)
+
+    @field_validator("trend_frame_ancestors")
+    @classmethod
+    def _origins(cls, values: list[str]) -> list[str]:
+        for value in values:
+            if not _ORIGIN.fullmatch(value):
+                raise ValueError(
+                    f"server.trend_frame_ancestors: {value[:80]!r} is not an origin such as "
+                    "https://ehr.example.org or https://ehr.example.org:8443"
+                )
+        return values
+
+    @model_validator(mode="after")
+    def _room_for_small_calls(self) -> ServerSettings:
+        if self.max_large_calls >= self.evaluation_threads:
+            raise ValueError(
+                "server.max_large_calls must be below server.evaluation_threads, so that "
+                "small calls always find a thread without a large call"
+            )
+        return self
 
 
 class StorageSettings(_Section):
