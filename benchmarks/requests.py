@@ -408,7 +408,10 @@ def hook_request(
             "access_token": "lvh-bench-token-not-secret",
             "token_type": "Bearer",
             "expires_in": 300,
-            "scope": "patient/Patient.read patient/Observation.read",
+            "scope": (  # SMART App Launch 2.0.0 scopes (v2 form) for every read
+                "patient/Patient.r patient/Observation.rs patient/MedicationRequest.rs "
+                "patient/MedicationStatement.rs patient/Condition.rs"
+            ),
             "subject": "tonicity-bench",
         }
     return body

@@ -17,7 +17,7 @@ import gc
 import logging
 import time
 from collections.abc import AsyncIterator, Awaitable, Callable, MutableMapping
-from contextlib import asynccontextmanager
+from contextlib import asynccontextmanager, nullcontext
 from datetime import UTC, datetime
 from typing import Any
 
@@ -33,11 +33,20 @@ from cds_service import logs, ops
 from cds_service.config import Settings
 from cds_service.errors import UserError
 from cds_service.hooks.auth import Authenticator, AuthError
-from cds_service.hooks.models import strict_json
+from cds_service.hooks.bodies import (
+    ECHO_LIMIT,
+    BodyTooLarge,
+    declared_length,
+    echo,
+    parse_body,
+    read_body,
+    require_json_media_type,
+)
 from cds_service.hooks.registry import SERVICES, discovery
-from cds_service.hooks.service import HookError, evaluate
+from cds_service.hooks.service import HookError, Outcome, evaluate
 from cds_service.store import Store
 from cds_service.store.feedback import record_feedback
+from cds_service.workers import EvaluationPool, LargeCallGate, collector_held
 
 _log = logging.getLogger(__name__)
 
@@ -52,13 +61,21 @@ _ISSUE_CODES = {
     405: "not-supported",
     412: "incomplete",
     413: "too-costly",
+    415: "not-supported",
     500: "exception",
+    503: "transient",
 }
+
+
+#: Longest ``diagnostics`` of an answer: what a caller sent is never echoed without bound.
+MAX_DIAGNOSTICS = 500
 
 
 def operation_outcome(
     status: int, message: str, headers: dict[str, str] | None = None
 ) -> JSONResponse:
+    if len(message) > MAX_DIAGNOSTICS:
+        message = message[: MAX_DIAGNOSTICS - 20] + " ... (message cut)"
     body = {
         "resourceType": "OperationOutcome",
         "issue": [
@@ -72,33 +89,8 @@ def operation_outcome(
     return JSONResponse(body, status_code=status, headers=headers)
 
 
-class BodyTooLarge(Exception):
-    pass
-
-
-async def read_json(request: Request, limit: int) -> Any:
-    """The request body as JSON, refusing more than ``limit`` bytes (declared or streamed)."""
-    declared = request.headers.get("content-length")
-    if declared is not None:
-        try:
-            if int(declared) > limit:
-                raise BodyTooLarge
-        except ValueError:
-            raise HookError(400, "Content-Length is not a number") from None
-    chunks: list[bytes] = []
-    size = 0
-    async for chunk in request.stream():
-        size += len(chunk)
-        if size > limit:
-            raise BodyTooLarge
-        chunks.append(chunk)
-    raw = b"".join(chunks)
-    if not raw.strip():
-        raise HookError(400, "the request body is empty; a JSON object is required")
-    try:
-        return strict_json(raw)
-    except ValueError as exc:
-        raise HookError(400, f"the request body is not valid JSON ({exc})") from None
+class Busy(Exception):
+    """Too many large calls in flight: 503 with Retry-After."""
 
 
 def _local_trial(settings: Settings) -> bool:
@@ -156,16 +148,14 @@ def create_app(settings: Settings) -> FastAPI:
         # Parse unit tables and FHIR models now, not on the first clinician's request
         # (it cost about 0.8 s there).
         warm_up()
-        store = Store(settings.storage.url)
-        http = httpx.AsyncClient(
-            timeout=httpx.Timeout(
-                settings.fhir.time_budget_seconds, connect=settings.fhir.connect_timeout_seconds
-            ),
-            follow_redirects=False,
-        )
+        store = Store(settings.storage.url, migrate=settings.storage.migrate_at_start)
+        http = _http_client(settings)
+        pool = EvaluationPool(settings.server.evaluation_threads, lambda: _http_client(settings))
         try:
             app.state.store = store
             app.state.http = http
+            app.state.pool = pool
+            app.state.large_calls = LargeCallGate(settings.server.max_large_calls)
             app.state.thresholds = load_thresholds(settings.clinical)
             app.state.authenticator = Authenticator(settings, store, http)
             # Everything loaded so far (models, schemas, data tables: ~180,000 objects) lives
@@ -175,6 +165,7 @@ def create_app(settings: Settings) -> FastAPI:
             gc.freeze()
             yield
         finally:
+            await run_in_threadpool(pool.close)
             await http.aclose()
             store.close()
 
@@ -202,12 +193,22 @@ def create_app(settings: Settings) -> FastAPI:
     return app
 
 
+def _http_client(settings: Settings) -> httpx.AsyncClient:
+    """The client for FHIR fetches and key sets (one per event loop, made at start)."""
+    return httpx.AsyncClient(
+        timeout=httpx.Timeout(
+            settings.fhir.time_budget_seconds, connect=settings.fhir.connect_timeout_seconds
+        ),
+        follow_redirects=False,
+    )
+
+
 def _install_error_handlers(app: FastAPI) -> None:
     @app.exception_handler(RequestValidationError)
     async def _validation(_request: Request, exc: RequestValidationError) -> JSONResponse:
         errors = exc.errors()
         first = errors[0] if errors else {}
-        where = ".".join(str(p) for p in first.get("loc", ())) or "request"
+        where = ".".join(str(p)[:ECHO_LIMIT] for p in first.get("loc", ())) or "request"
         return operation_outcome(400, f"invalid request: {where}: {first.get('msg', 'invalid')}")
 
     @app.exception_handler(StarletteHTTPException)
@@ -222,6 +223,16 @@ def _install_error_handlers(app: FastAPI) -> None:
     async def _too_large(request: Request, _exc: BodyTooLarge) -> JSONResponse:
         limit = request.app.state.settings.server.max_body_bytes
         return operation_outcome(413, f"the request body is larger than {limit} bytes")
+
+    @app.exception_handler(Busy)
+    async def _busy(request: Request, _exc: Busy) -> JSONResponse:
+        server = request.app.state.settings.server
+        return operation_outcome(
+            503,
+            f"busy: {server.max_large_calls} large calls (over {server.large_call_bytes} bytes) "
+            "are being evaluated; retry later",
+            {"Retry-After": str(server.busy_retry_after_seconds)},
+        )
 
     @app.exception_handler(Exception)
     async def _internal(_request: Request, exc: Exception) -> JSONResponse:
@@ -266,20 +277,9 @@ def _install_routes(app: FastAPI, settings: Settings) -> None:
         try:
             caller = await _authenticate(request, settings)
             if service_id not in SERVICES:
-                raise HookError(404, f"no CDS service with id {service_id!r}")
-            body = await read_json(request, settings.server.max_body_bytes)
-            state = request.app.state
-            outcome = await evaluate(
-                body,
-                settings=settings,
-                thresholds=state.thresholds,
-                now=datetime.now(UTC),
-                http=state.http,
-                caller=caller,
-                service_id=service_id,
-                store=state.store,
-                authenticator=state.authenticator,
-            )
+                raise HookError(404, f"no CDS service with id {echo(service_id)}")
+            require_json_media_type(request)
+            outcome = await _evaluate_off_loop(request, settings, caller, service_id)
             status = 200
             return JSONResponse(outcome.response)
         except HookError as exc:
@@ -287,6 +287,9 @@ def _install_routes(app: FastAPI, settings: Settings) -> None:
             raise
         except BodyTooLarge:
             status = 413
+            raise
+        except Busy:
+            status = 503
             raise
         except _Unauthorized:
             status = 401
@@ -300,20 +303,62 @@ def _install_routes(app: FastAPI, settings: Settings) -> None:
     async def feedback(service_id: str, request: Request) -> JSONResponse:
         caller = await _authenticate(request, settings)
         if service_id not in SERVICES:
-            raise HookError(404, f"no CDS service with id {service_id!r}")
-        body = await read_json(request, settings.server.max_body_bytes)
+            raise HookError(404, f"no CDS service with id {echo(service_id)}")
+        require_json_media_type(request)
+        raw = await read_body(request, settings.server.max_body_bytes)
         try:
             stored = await run_in_threadpool(
-                record_feedback,
-                request.app.state.store,
-                service_id,
-                body,
-                getattr(caller, "issuer", None),
-                datetime.now(UTC),
+                lambda: record_feedback(
+                    request.app.state.store,
+                    service_id,
+                    parse_body(raw),
+                    getattr(caller, "issuer", None),
+                    datetime.now(UTC),
+                )
             )
         except UserError as exc:
             raise HookError(400, str(exc)) from None
         return JSONResponse({"stored": stored})
+
+
+async def _evaluate_off_loop(
+    request: Request, settings: Settings, caller: Any, service_id: str
+) -> Outcome:
+    """Read the body here, then parse, ingest and evaluate it on the evaluation pool
+    (:mod:`cds_service.workers`); a large body needs a free large-call slot, else 503."""
+    state = request.app.state
+    server = settings.server
+    gate: LargeCallGate = state.large_calls
+    declared = declared_length(request)
+    large = declared is not None and declared > server.large_call_bytes
+    if large and not gate.try_enter():
+        raise Busy  # refused before its body is read
+    try:
+        raw = await read_body(request, server.max_body_bytes)
+        if not large and len(raw) > server.large_call_bytes:  # sent without Content-Length
+            if not gate.try_enter():
+                raise Busy
+            large = True
+        now = datetime.now(UTC)
+
+        async def work(http: httpx.AsyncClient) -> Outcome:
+            with collector_held() if large else nullcontext():
+                return await evaluate(
+                    parse_body(raw),
+                    settings=settings,
+                    thresholds=state.thresholds,
+                    now=now,
+                    http=http,
+                    caller=caller,
+                    service_id=service_id,
+                    store=state.store,
+                    authenticator=state.authenticator,
+                )
+
+        return await state.pool.run(work, large=large)
+    finally:
+        if large:
+            gate.leave()
 
 
 def _observe(service_id: str, status: int, seconds: float) -> None:

@@ -1,5 +1,5 @@
 """``tonicity`` command line (DESIGN.md contract): serve, evaluate, inspect, replay, keys,
-feedback-report. Each subcommand lives in ``cds_service.commands.<name>`` with
+feedback-report, db, knowledge. Each subcommand lives in ``cds_service.commands.<name>`` with
 ``add_arguments(parser)`` and ``run(args) -> int``; heavy imports happen inside ``run``.
 """
 
@@ -8,6 +8,7 @@ from __future__ import annotations
 import argparse
 import importlib
 import sys
+from typing import NoReturn
 
 from cds_service.errors import UserError
 
@@ -18,11 +19,20 @@ COMMANDS: dict[str, tuple[str, str]] = {
     "replay": ("replay", "post the sample requests to a running deployment and check them"),
     "keys": ("keys", "generate a client key pair and JWKS, or sign a test token"),
     "feedback-report": ("feedback_report", "acceptance and override rates per finding code"),
+    "db": ("db", "upgrade the database schema, or show its revision"),
+    "knowledge": ("knowledge", "every threshold, drug class, infusate and code with its source"),
 }
 
 
+class _Parser(argparse.ArgumentParser):
+    """Argument errors in one line (the rule for every user error), with where to look."""
+
+    def error(self, message: str) -> NoReturn:
+        self.exit(2, f"{self.prog}: {message} (see {self.prog} --help)\n")
+
+
 def build_parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(
+    parser = _Parser(
         prog="tonicity",
         description="Tonicity: hyponatremia work-up and sodium order safety as CDS Hooks.",
     )

@@ -7,14 +7,27 @@ Relative file paths in the TOML file (``jwks_file``) are resolved against the fi
 
 from __future__ import annotations
 
+import re
 import tomllib
+from datetime import UTC, tzinfo
 from pathlib import Path
 from typing import Any
+from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
-from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
+from pydantic import (
+    BaseModel,
+    ConfigDict,
+    Field,
+    ValidationError,
+    field_validator,
+    model_validator,
+)
 from pydantic_settings import BaseSettings, PydanticBaseSettingsSource, SettingsConfigDict
 
 from cds_service.errors import UserError
+
+#: A web origin for CSP ``frame-ancestors``: scheme, host and optional port, nothing else.
+_ORIGIN = re.compile(r"https?://[A-Za-z0-9.-]+(:[0-9]{1,5})?")
 
 
 class _Section(BaseModel):
@@ -27,15 +40,93 @@ class ServerSettings(_Section):
     port: int = Field(8080, ge=1, le=65535)
     max_body_bytes: int = Field(5_000_000, ge=1024)
     trend_link_ttl_hours: float = Field(12.0, gt=0)
+    #: IANA time zone in which pages show times to clinicians (UTC stays on hover and in
+    #: the tables); checked at start.
+    time_zone: str = "UTC"
+
+    @field_validator("time_zone")
+    @classmethod
+    def _known_zone(cls, v: str) -> str:
+        try:
+            ZoneInfo(v)
+        except (ZoneInfoNotFoundError, ValueError) as exc:
+            raise ValueError(
+                f"unknown time zone {v!r} (use an IANA name such as Europe/Vienna)"
+            ) from exc
+        return v
+
+    @property
+    def tz(self) -> tzinfo:
+        return UTC if self.time_zone == "UTC" else ZoneInfo(self.time_zone)
+    #: Threads that parse, ingest and evaluate hook calls off the event loop.
+    evaluation_threads: int = Field(4, ge=2, le=64)
+    #: A hook call whose body is larger counts as large (see max_large_calls).
+    large_call_bytes: int = Field(1_000_000, ge=1024)
+    #: Large calls evaluated at once by this process; the next gets 503 with Retry-After.
+    max_large_calls: int = Field(2, ge=1)
+    #: Seconds a refused large call is told to wait (Retry-After).
+    busy_retry_after_seconds: int = Field(5, ge=1, le=600)
 
     @field_validator("public_base_url")
     @classmethod
     def _strip_slash(cls, v: str) -> str:
         return v.rstrip("/")
 
+    #: Origins (``https://host[:port]``) whose pages may show the trend page in a frame; empty:
+    #: no page may frame it (CSP ``frame-ancestors 'none'``, ``X-Frame-Options: DENY``).
+    trend_frame_ancestors: list[str] = Field(default_factory=list)
+
+    @field_validator("trend_frame_ancestors")
+    @classmethod
+    def _origins(cls, values: list[str]) -> list[str]:
+        for value in values:
+            if not _ORIGIN.fullmatch(value):
+                raise ValueError(
+                    f"server.trend_frame_ancestors: {value[:80]!r} is not an origin such as "
+                    "https://ehr.example.org or https://ehr.example.org:8443"
+                )
+        return values
+
+    @model_validator(mode="after")
+    def _room_for_small_calls(self) -> ServerSettings:
+        if self.max_large_calls >= self.evaluation_threads:
+            raise ValueError(
+                "server.max_large_calls must be below server.evaluation_threads, so that "
+                "small calls always find a thread without a large call"
+            )
+        return self
+
 
 class StorageSettings(_Section):
     url: str = "sqlite:///tonicity.db"
+    #: Bring the schema to this version's revision at start (under a lock); false when a
+    #: separate `tonicity db upgrade` step does it and the service's role may not alter tables.
+    migrate_at_start: bool = True
+    #: A file holding the database password (a Docker or Kubernetes secret), so that the
+    #: password is in neither the URL nor the environment; it replaces any password in ``url``.
+    password_file: Path | None = None
+
+    @model_validator(mode="after")
+    def _password_from_file(self) -> StorageSettings:
+        if self.password_file is None:
+            return self
+        from sqlalchemy import make_url
+        from sqlalchemy.exc import ArgumentError
+
+        try:
+            password = self.password_file.read_text(encoding="utf-8").strip("\r\n")
+        except (OSError, UnicodeDecodeError) as exc:
+            reason = getattr(exc, "strerror", None) or type(exc).__name__
+            raise ValueError(f"storage.password_file {self.password_file}: {reason}") from None
+        if not password:
+            raise ValueError(f"storage.password_file {self.password_file} is empty")
+        try:
+            url = make_url(self.url).set(password=password)
+        except ArgumentError:
+            raise ValueError("storage.url is not a database URL") from None
+        self.url = url.render_as_string(hide_password=False)
+        self.password_file = None  # read once: a copy of these settings must not read it again
+        return self
 
 
 class ClientSettings(_Section):
@@ -117,6 +208,10 @@ class Settings(BaseSettings):
 
 
 def _resolve_paths(data: dict[str, Any], base: Path) -> dict[str, Any]:
+    storage = data.get("storage")
+    if isinstance(storage, dict) and isinstance(storage.get("password_file"), str):
+        if not Path(storage["password_file"]).is_absolute():
+            storage["password_file"] = str(base / storage["password_file"])
     for client in data.get("auth", {}).get("clients", []) or []:
         jwks = client.get("jwks_file")
         if isinstance(jwks, str) and not Path(jwks).is_absolute():
@@ -142,7 +237,11 @@ def load_settings(path: str | Path | None = None, **overrides: Any) -> Settings:
         data[key] = value
     try:
         return Settings(**data)
-    except ValueError as exc:  # pydantic ValidationError is a ValueError
-        first = str(exc).splitlines()
-        detail = " ".join(first[1:3]).strip() if len(first) > 1 else str(exc)
-        raise UserError(f"invalid configuration: {detail}") from None
+    except ValidationError as exc:
+        # Location and message only: the input may hold a password (storage.url).
+        err = exc.errors(include_url=False, include_input=False)[0]
+        where = ".".join(str(p) for p in err.get("loc", ())) or "settings"
+        msg = str(err.get("msg", "invalid")).removeprefix("Value error, ")
+        raise UserError(f"invalid configuration: {where}: {msg}") from None
+    except ValueError as exc:
+        raise UserError(f"invalid configuration: {str(exc).splitlines()[0]}") from None

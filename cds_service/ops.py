@@ -122,7 +122,7 @@ router = APIRouter(tags=["operations"])
 
 
 @router.get("/healthz", include_in_schema=False)
-def healthz() -> dict[str, str]:
+async def healthz() -> dict[str, str]:  # on the event loop itself: no thread to wait for
     return {"status": "ok"}
 
 

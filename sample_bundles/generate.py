@@ -81,7 +81,17 @@ ANALYTES: dict[str, tuple[str, str, str, str, str]] = {
     "wt": ("29463-7", "Body weight", "kg", "kg", "vital-signs"),
     "ht": ("8302-2", "Body height", "cm", "cm", "vital-signs"),
 }
-SODIUM_KEYS = {"na", "na_bg"}  # the service's "sodium" prefetch key; everything else is "labs"
+SODIUM_KEYS = {"na", "na_bg"}  # the service's "sodium" prefetch key
+# The service's other Observation prefetch keys (cds_service/hooks/registry.py LAB_GROUPS);
+# a result whose analyte is not listed here goes under "labs".
+LAB_PREFETCH_KEYS: dict[str, str] = {
+    "sosm": "osmolality",
+    "uosm": "urineStudies", "una": "urineStudies", "uk": "urineStudies",
+    "tsh": "endocrine", "cort": "endocrine",
+    "tg": "solutes", "tp": "solutes", "ua": "solutes",
+    "wt": "bodySize", "ht": "bodySize",
+}
+LAB_KEYS = ("labs", "osmolality", "urineStudies", "endocrine", "solutes", "bodySize")
 
 # Unit strings record systems send that are not UCUM codes (no system, no code).
 LEGACY_UNITS: dict[str, str] = {
@@ -339,13 +349,19 @@ def prefetch(p: Person) -> dict[str, Any]:
                  key=lambda r: r["effectiveDateTime"], reverse=True)
     sodium_codes = {ANALYTES[k][0] for k in SODIUM_KEYS}
     sodium = [o for o in obs if o["code"]["coding"][0]["code"] in sodium_codes]
-    labs = [o for o in obs if o["code"]["coding"][0]["code"] not in sodium_codes]
+    key_of = {ANALYTES[k][0]: key for k, key in LAB_PREFETCH_KEYS.items()}
+    labs: dict[str, list[dict[str, Any]]] = {key: [] for key in LAB_KEYS}
+    for o in obs:
+        code = o["code"]["coding"][0]["code"]
+        if code not in sodium_codes:
+            labs[key_of.get(code, "labs")].append(o)
     meds = [r for r in res if r["resourceType"] == "MedicationRequest" and r["status"] == "active"]
     conds = [r for r in res if r["resourceType"] == "Condition"]
     return {
         "patient": res[0],
         "sodium": bundle(sodium, "searchset", f"{p.pid}-sodium"),
-        "labs": bundle(labs, "searchset", f"{p.pid}-labs"),
+        **{key: bundle(found, "searchset", f"{p.pid}-{key.lower()}")
+           for key, found in labs.items()},
         "medicationRequests": bundle(meds, "searchset", f"{p.pid}-medreq"),
         "medicationStatements": bundle([], "searchset", f"{p.pid}-medstmt"),
         "conditions": bundle(conds, "searchset", f"{p.pid}-cond"),

@@ -1,18 +1,28 @@
 """Reading the clinical data files (``clinical/data/*.toml``) once, with their citations.
 
 Each data file is parsed on first use and cached for the life of the process. Loaders in the
-modules that own a file validate its entries; this module only reads TOML and resolves the
-citation keys that every entry's ``source`` names.
+modules that own a file validate its entries; this module only reads TOML, resolves the
+citation keys that every entry's ``source`` names, and prints a source the way cards show it.
+
+How a source is printed (``cite``):
+
+- an entry checked against its text (``from_memory = false``): the full reference with its
+  DOI or PMID, then the ``locator`` (section, table, recommendation or page);
+- an entry not yet checked: the full reference followed by :data:`UNCHECKED_MARK`, so a
+  clinician sees the reference without it being presented as verified;
+- ``common practice``: a fact of the trade with no single published source.
 """
 
 from __future__ import annotations
 
 import tomllib
+from dataclasses import dataclass
 from functools import cache
 from importlib import resources
 from typing import Any
 
 COMMON_PRACTICE = "common practice"
+UNCHECKED_MARK = "(not yet checked against the source text)"
 
 
 class DataFileError(ValueError):
@@ -29,18 +39,75 @@ def read_data_file(name: str) -> dict[str, Any]:
         raise DataFileError(f"{name}: {exc}") from None
 
 
+@dataclass(frozen=True, slots=True)
+class Citation:
+    """One entry of citations.toml."""
+
+    key: str
+    text: str  # authors, title, journal, year;volume:pages
+    checked: bool  # the reference itself was seen in the publication or its index entry
+    doi: str = ""
+    pmid: str = ""
+    url: str = ""  # for sources without DOI or PMID (a standard, a label)
+    id_checked: bool = False  # the DOI / PMID / URL was seen, not recalled
+    locator: str = ""  # where the reference was seen
+
+    @property
+    def reference(self) -> str:
+        """The printed reference: text, then its DOI, PMID or URL when they were seen (a
+        recalled identifier is not printed: a wrong one would send a reader elsewhere)."""
+        return self.text.rstrip(".") + (f". {self.identifiers}" if self.id_checked else "")
+
+    @property
+    def identifiers(self) -> str:
+        """DOI and PMID (or the URL when there is neither), as printed."""
+        ids = []
+        if self.doi:
+            ids.append(f"doi:{self.doi}")
+        if self.pmid:
+            ids.append(f"PMID {self.pmid}")
+        if self.url and not ids:
+            ids.append(self.url)
+        return ". ".join(ids)
+
+
+def _optional_str(where: str, entry: dict[str, Any], key: str) -> str:
+    value = entry.get(key, "")
+    if not isinstance(value, str):
+        raise DataFileError(f"{where} {key} must be a string")
+    return value.strip()
+
+
 @cache
-def citations() -> dict[str, str]:
-    """Citation key -> printed reference, from ``citations.toml`` (``(from memory)`` appended
-    when the entry was not checked against the text)."""
-    out: dict[str, str] = {}
+def citation_table() -> dict[str, Citation]:
+    """Citation key -> :class:`Citation`, from ``citations.toml`` (validated)."""
+    out: dict[str, Citation] = {}
     for key, entry in read_data_file("citations.toml").items():
+        where = f"citations.toml: [{key}]"
         text = entry.get("text") if isinstance(entry, dict) else None
         checked = entry.get("checked") if isinstance(entry, dict) else None
         if not isinstance(text, str) or not text or not isinstance(checked, bool):
-            raise DataFileError(f"citations.toml: [{key}] needs text and checked")
-        out[key] = text if checked else f"{text} (from memory)"
+            raise DataFileError(f"{where} needs text and checked")
+        id_checked = entry.get("id_checked", False)
+        if not isinstance(id_checked, bool):
+            raise DataFileError(f"{where} id_checked must be true or false")
+        out[key] = Citation(
+            key=key,
+            text=text,
+            checked=checked,
+            doi=_optional_str(where, entry, "doi"),
+            pmid=_optional_str(where, entry, "pmid"),
+            url=_optional_str(where, entry, "url"),
+            id_checked=id_checked,
+            locator=_optional_str(where, entry, "locator"),
+        )
     return out
+
+
+@cache
+def citations() -> dict[str, str]:
+    """Citation key -> printed reference (text with DOI or PMID)."""
+    return {key: c.reference for key, c in citation_table().items()}
 
 
 def check_source(file: str, where: str, source: object) -> str:
@@ -50,17 +117,20 @@ def check_source(file: str, where: str, source: object) -> str:
     raise DataFileError(f"{file}: {where} has unknown source {source!r}")
 
 
-def cite(source: str, from_memory: bool = False) -> str:
-    """The printed reference of a ``source`` field, marked when the entry was written from
-    memory."""
+def check_locator(file: str, where: str, entry: dict[str, Any]) -> str:
+    """The optional ``locator`` of an entry (where in its source the figure stands)."""
+    return _optional_str(f"{file}: {where}", entry, "locator")
+
+
+def cite(source: str, from_memory: bool = False, locator: str = "") -> str:
+    """The printed reference of a ``source`` field: with its locator when the entry was
+    checked against the text, marked :data:`UNCHECKED_MARK` when it was not."""
     if source == COMMON_PRACTICE:
-        # No text to check against: "from memory" can only mean the figure was recalled.
-        detail = "; the figure is from memory" if from_memory else ""
-        return f"Common practice (no single published source{detail})"
-    text = citations()[source]
-    if from_memory and not text.endswith("(from memory)"):
-        text += " (from memory)"
-    return text
+        return "Common practice (no single published source)"
+    ref = citation_table()[source]
+    if from_memory or not ref.checked:
+        return f"{ref.reference} {UNCHECKED_MARK}"
+    return f"{ref.reference}; {locator}" if locator else ref.reference
 
 
 def require(file: str, where: str, entry: dict[str, Any], key: str, kind: type | tuple) -> Any:

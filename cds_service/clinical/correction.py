@@ -219,12 +219,15 @@ def correction_finding(ctx: ClinicalContext, th: Thresholds) -> Finding | None:
             f"Rise = {num(worst.end.value)} − {num(worst.start.value)} = "
             f"{num(worst.amount)} mmol/L within {hours} h",
         ),
-        sources=(th.cite("correction_limit_24h"), cite("spasovski2014", True)),
+        sources=(
+            th.cite("correction_limit_24h"),
+            cite("spasovski2014", True),
+            cite("verbalis2013", True),
+        ),
         next_steps=(
             "Stop sodium-raising treatment (hypertonic saline, vaptans) and seek expert advice.",
             "Consider re-lowering sodium with electrolyte-free water (e.g. 5% dextrose) with or "
-            "without desmopressin, per local protocol (Spasovski 2014; Verbalis 2013, from "
-            "memory).",
+            "without desmopressin, per local protocol (Spasovski 2014; Verbalis 2013).",
         ),
         cautions=(CAUTION, "Osmotic demyelination can show days later: watch neurology."),
     )

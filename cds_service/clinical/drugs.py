@@ -10,7 +10,14 @@ from enum import StrEnum
 from functools import cache, lru_cache
 from types import MappingProxyType
 
-from cds_service.clinical._data import DataFileError, check_source, cite, read_data_file, require
+from cds_service.clinical._data import (
+    DataFileError,
+    check_locator,
+    check_source,
+    cite,
+    read_data_file,
+    require,
+)
 from cds_service.clinical.context import ClinicalContext, DraftMedication, MedicationEntry
 
 _FILE = "drug_classes.toml"
@@ -38,6 +45,7 @@ class DrugClass:
     from_memory: bool
     rxnorm_from_memory: bool
     drugs: Mapping[str, str]  # generic name -> RxNorm ingredient code ("" if unknown)
+    locator: str = ""  # where in the source the class membership stands
 
     def __post_init__(self) -> None:
         if not self.drugs:
@@ -48,7 +56,7 @@ class DrugClass:
 
     @property
     def citation(self) -> str:
-        return cite(self.source, self.from_memory)
+        return cite(self.source, self.from_memory, self.locator)
 
 
 @dataclass(frozen=True, slots=True)
@@ -78,6 +86,7 @@ def _load_class(key: str, entry: object) -> DrugClass:
             from_memory=require(_FILE, where, entry, "from_memory", bool),
             rxnorm_from_memory=require(_FILE, where, entry, "rxnorm_from_memory", bool),
             drugs=MappingProxyType(dict(drugs)),
+            locator=check_locator(_FILE, where, entry),
         )
     except ValueError as exc:
         raise DataFileError(f"{_FILE}: {where}: {exc}") from None

@@ -17,7 +17,14 @@ from enum import StrEnum
 from functools import cache
 from types import MappingProxyType
 
-from cds_service.clinical._data import DataFileError, check_source, read_data_file, require
+from cds_service.clinical._data import (
+    DataFileError,
+    check_locator,
+    check_source,
+    cite,
+    read_data_file,
+    require,
+)
 from cds_service.clinical.context import DraftFluid
 from cds_service.clinical.thresholds import Thresholds, load_thresholds
 
@@ -52,6 +59,11 @@ class Infusate:
     tonicity: FluidTonicity
     source: str
     from_memory: bool
+    locator: str = ""  # where in the source the composition stands
+
+    @property
+    def citation(self) -> str:
+        return cite(self.source, self.from_memory, self.locator)
 
     def __post_init__(self) -> None:
         if min(self.sodium, self.potassium) < 0 or self.osmolarity <= 0:
@@ -74,6 +86,7 @@ def _load(key: str, entry: object) -> Infusate:
             tonicity=FluidTonicity(require(_FILE, where, entry, "tonicity", str)),
             source=check_source(_FILE, where, entry.get("source")),
             from_memory=require(_FILE, where, entry, "from_memory", bool),
+            locator=check_locator(_FILE, where, entry),
         )
     except ValueError as exc:
         raise DataFileError(f"{_FILE}: {where}: {exc}") from None

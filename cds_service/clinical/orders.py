@@ -199,7 +199,7 @@ def hypertonic_saline_finding(o: OrderContext, fluids: list[ResolvedFluid]) -> F
         f"Reference only, not ordered: for severe symptoms the 2014 European guideline gives "
         f"{num(th.bolus_hypertonic_volume, 0)} mL of 3% saline over "
         f"{num(th.bolus_hypertonic_minutes, 0)} min, repeated until sodium rises "
-        f"{num(th.bolus_target_rise, 0)} mmol/L (from memory)."
+        f"{num(th.bolus_target_rise, 0)} mmol/L."
     )
     return Finding(
         code=FindingCode.HYPERTONIC_SALINE_ORDER,
@@ -254,7 +254,8 @@ def vaptan_finding(o: OrderContext) -> Finding | None:
     first = matches[0]
     cautions = [
         CAUTION,
-        "Overcorrection risk: check sodium every 6-8 h in the first 24-48 h (from memory).",
+        "Overcorrection risk: check sodium every 6-8 h in the first 24-48 h, or as the "
+        "product label and local protocol say.",
         "Do not restrict fluid in the first 24 h; let the patient drink to thirst.",
         "Liver injury reported with tolvaptan: avoid in liver disease; limit to 30 days.",
         "Not for hypovolemic hyponatremia, nor for urgent treatment of severe symptoms.",

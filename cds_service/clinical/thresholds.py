@@ -14,7 +14,14 @@ from dataclasses import dataclass, fields, replace
 from functools import cache
 from types import MappingProxyType
 
-from cds_service.clinical._data import DataFileError, check_source, cite, read_data_file, require
+from cds_service.clinical._data import (
+    DataFileError,
+    check_locator,
+    check_source,
+    cite,
+    read_data_file,
+    require,
+)
 
 _FILE = "thresholds.toml"
 
@@ -27,10 +34,11 @@ class ThresholdEntry:
     source: str
     from_memory: bool
     note: str = ""
+    locator: str = ""  # where in the source the figure stands (section, table, page)
 
     @property
     def citation(self) -> str:
-        return cite(self.source, self.from_memory)
+        return cite(self.source, self.from_memory, self.locator)
 
 
 @dataclass(frozen=True, slots=True)
@@ -156,6 +164,7 @@ def threshold_entries() -> Mapping[str, ThresholdEntry]:
                 source=check_source(_FILE, where, entry.get("source")),
                 from_memory=require(_FILE, where, entry, "from_memory", bool),
                 note=entry.get("note", ""),
+                locator=check_locator(_FILE, where, entry),
             )
     names = {f.name for f in fields(Thresholds)}
     if set(out) != names:

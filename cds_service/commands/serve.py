@@ -94,7 +94,7 @@ def preflight(settings) -> None:  # type: ignore[no-untyped-def]
         raise UserError(f"invalid [clinical] threshold override: {exc}") from None
 
     try:
-        store = Store(settings.storage.url)
+        store = Store(settings.storage.url, migrate=settings.storage.migrate_at_start)
     except Exception as exc:
         detail = str(exc).splitlines()[0][:200] if str(exc) else ""
         raise UserError(f"cannot open the store: {type(exc).__name__}: {detail}") from None

@@ -188,11 +188,14 @@ def build_context(
     draft_orders: Iterable[Any] = (),
     selections: Collection[str] = (),
     report_lines: bool = True,
+    partial_reads: Collection[str] = (),
     display_units: str = DisplayUnits.CONVENTIONAL,
 ) -> Ingested:
     """The ClinicalContext for one patient at ``now``, and what was understood of each resource
     (``report_lines`` False: the same context, an empty report, for callers that do not show
-    it). ``display_units``: the institution's units for card text (``display.units``)."""
+    it). ``partial_reads``: the queries (prefetch keys) of which only the first page(s) were
+    read; the context carries them so that the cards resting on them say so.
+    ``display_units``: the institution's units for card text (``display.units``)."""
     now = _aware(now)
     report = ReportBuilder(enabled=report_lines)
     collected = collect(resources, report)
@@ -222,6 +225,7 @@ def build_context(
         draft_fluids=tuple(d for d in drafts if isinstance(d, DraftFluid)),
         draft_medications=tuple(d for d in drafts if isinstance(d, DraftMedication)),
         draft_unidentified=tuple(d for d in drafts if isinstance(d, DraftUnidentified)),
+        partial_reads=tuple(sorted(set(partial_reads))),
         display_units=DisplayUnits(display_units),
     )
     return Ingested(ctx, report.build())

@@ -20,11 +20,16 @@ class LoincEntry:
     direct_ise: bool = False
     primary: bool = False
     short: str = ""  # plain name for an order button (primary entries)
-    source: str = ""
+    source: str = ""  # the listing where code and long name were read, or what is known
+    checked: bool = False  # code and long name read together at `source`
 
     def __post_init__(self) -> None:
         if not self.code or not self.name:
             raise ValueError(f"LOINC entry needs a code and a long name: {self!r}")
+        if not isinstance(self.checked, bool):
+            raise ValueError(f"LOINC entry {self.code}: checked must be true or false")
+        if self.checked and not self.source:
+            raise ValueError(f"LOINC entry {self.code}: checked needs the listing in source")
 
 
 @cache
@@ -42,6 +47,7 @@ def entries() -> tuple[LoincEntry, ...]:
                 primary=bool(raw.get("primary", False)),
                 short=str(raw.get("short", "")),
                 source=str(raw.get("source", "")),
+                checked=raw.get("checked", False),
             )
         )
     return tuple(out)

@@ -17,8 +17,8 @@ def sex_of(resource: dict[str, Any]) -> Sex:
 
 
 def facts(resource: dict[str, Any] | None, patient_id: str | None, now: datetime) -> PatientFacts:
-    if resource is None:
-        return PatientFacts(patient_id=patient_id, age_years=None, sex=Sex.UNKNOWN)
+    if resource is None:  # none sent, found or readable: age and sex were never checked
+        return PatientFacts(patient_id=patient_id, age_years=None, sex=Sex.UNKNOWN, known=False)
     birth = parse_birth_date(resource.get("birthDate"))
     age = age_years(birth, now) if birth is not None and birth <= now.date() else None
     return PatientFacts(

@@ -13,8 +13,10 @@ problem and never key material):
    fetched again once for an unknown ``kid``, at most every ``REFETCH_MIN_SECONDS``);
 4. the signature verifies with the key of that ``kid`` and the header's algorithm;
 5. ``aud`` (string or array) holds the URL of the endpoint being invoked;
-6. ``exp`` and ``iat`` are present; ``exp`` not passed and ``iat`` not in the future, both
-   within ``clock_skew_seconds``; ``exp - iat`` at most ``max_token_lifetime_seconds``;
+6. ``exp`` and ``iat`` are present, and they and ``nbf`` are whole seconds between 1970 and
+   the year 9999 (no NaN, no infinity, no fraction); ``exp`` not passed and ``iat`` not in
+   the future, both within ``clock_skew_seconds``; ``exp - iat`` at most
+   ``max_token_lifetime_seconds``;
 7. ``jti`` has not been seen before from this issuer by any replica sharing the database
    (remembered until ``exp`` plus the skew); ``tenant`` is recorded.
 
@@ -28,6 +30,7 @@ from __future__ import annotations
 import asyncio
 import json
 import logging
+import math
 import time
 import uuid
 from collections.abc import Callable, Mapping
@@ -206,8 +209,8 @@ class Authenticator:
         auth = self.settings.auth
         if not _audience_matches(claims.get("aud"), endpoint_url):
             raise AuthError("audience mismatch")
-        exp, iat = claims.get("exp"), claims.get("iat")
-        if not _is_number(exp) or not _is_number(iat):
+        exp, iat = _numeric_date(claims.get("exp")), _numeric_date(claims.get("iat"))
+        if exp is None or iat is None:
             raise AuthError("malformed token")
         now_dt = self._now()
         now, skew = now_dt.timestamp(), auth.clock_skew_seconds
@@ -215,9 +218,12 @@ class Authenticator:
             raise AuthError("token expired")
         if iat > now + skew:
             raise AuthError("token issued in the future")
-        nbf = claims.get("nbf")
-        if nbf is not None and (not _is_number(nbf) or nbf > now + skew):
-            raise AuthError("token not yet valid")
+        if "nbf" in claims:
+            nbf = _numeric_date(claims["nbf"])
+            if nbf is None:
+                raise AuthError("malformed token")
+            if nbf > now + skew:
+                raise AuthError("token not yet valid")
         if exp <= iat:
             raise AuthError("token lifetime invalid")
         if exp - iat > auth.max_token_lifetime_seconds:
@@ -388,8 +394,24 @@ def _audience_matches(aud: object, endpoint_url: str) -> bool:
     return any(isinstance(v, str) and v.rstrip("/") == wanted for v in values)
 
 
-def _is_number(value: object) -> bool:
-    return isinstance(value, int | float) and not isinstance(value, bool)
+#: 9999-12-31T23:59:59Z: the last second a datetime holds.
+_LAST_NUMERIC_DATE = 253_402_300_799
+
+
+def _numeric_date(value: object) -> int | None:
+    """A NumericDate claim (RFC 7519 section 2) as whole seconds, or None.
+
+    Refused: booleans, strings, NaN and infinities, values before 1970 or after year 9999,
+    and fractions of a second. RFC 7519 allows fractions; we take only whole seconds (an
+    integral float such as ``1700000000.0`` counts as whole), as CDS clients send them, so
+    that no comparison meets a value no datetime can hold.
+    """
+    if isinstance(value, bool) or not isinstance(value, int | float):
+        return None
+    if isinstance(value, float) and not (math.isfinite(value) and value.is_integer()):
+        return None
+    seconds = int(value)
+    return seconds if 0 <= seconds <= _LAST_NUMERIC_DATE else None
 
 
 # ---------------------------------------------------------------------------------------------

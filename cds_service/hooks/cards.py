@@ -14,7 +14,7 @@ from typing import Any
 
 from cds_service.clinical.context import Analyte
 from cds_service.clinical.findings import FINDING_DISPLAY, Finding, FindingCode, Urgency
-from cds_service.fhir.builders import service_request
+from cds_service.fhir.builders import OrderContext, service_request
 from cds_service.fhir.loinc import order_name
 from cds_service.hooks.models import Action, Card, Coding, Link, Source, Suggestion
 
@@ -36,6 +36,38 @@ OVERRIDE_REASONS: tuple[tuple[str, str], ...] = (
 )
 
 VALUES_EXTENSION = "tonicity.values"
+
+#: Said first on every card when no readable Patient was had (PatientFacts.known False).
+PATIENT_NOT_CHECKED = (
+    "**Age and sex could not be checked**: no readable Patient record was available. Confirm "
+    "that the patient is an adult (18 years or over) before using this card; numbers that "
+    "depend on age or sex (total body water, sex-specific limits) are qualified below."
+)
+
+#: Finding codes whose cards rest on the medication queries (prefetch keys below).
+_MEDICATION_CODES = frozenset(
+    {
+        FindingCode.DRUG_ASSOCIATED,
+        FindingCode.SIADH_PATTERN,
+        FindingCode.DRUG_ORDER_RISK,
+        FindingCode.VAPTAN_ORDER,
+    }
+)
+_MEDICATION_KEYS = frozenset({"medicationRequests", "medicationStatements"})
+#: Codes that no problem-list entry changes.
+_NOT_CONDITIONS = frozenset(
+    {FindingCode.DRUG_ASSOCIATED, FindingCode.IMPLAUSIBLE, FindingCode.OUT_OF_SCOPE}
+)
+
+
+def rests_on(code: FindingCode, key: str) -> bool:
+    """Could the data of prefetch ``key`` change the card of ``code``? Sodium, the patient and
+    the laboratory queries feed every card; medications and problems only some."""
+    if key in _MEDICATION_KEYS:
+        return code in _MEDICATION_CODES
+    if key == "conditions":
+        return code not in _NOT_CONDITIONS
+    return True
 
 
 def _age(then: datetime, now: datetime) -> str:
@@ -74,9 +106,19 @@ def _test_name(analyte: str) -> str:
         return analyte.replace("_", " ")
 
 
-def render_detail(finding: Finding, now: datetime, unavailable: Iterable[str] = ()) -> str:
-    """The card detail in markdown."""
+def render_detail(
+    finding: Finding,
+    now: datetime,
+    unavailable: Iterable[str] = (),
+    *,
+    partial: Iterable[str] = (),
+    patient_known: bool = True,
+) -> str:
+    """The card detail in markdown; ``partial``: what was read only in part (first page of a
+    paged search), ``patient_known`` False: no readable Patient (said first)."""
     out: list[str] = [f"**{FINDING_DISPLAY[finding.code]}**", ""]
+    if not patient_known:
+        out += [PATIENT_NOT_CHECKED, ""]
     for paragraph in finding.details:  # one paragraph each (markdown joins adjacent lines)
         out += [paragraph, ""]
     if finding.values:
@@ -102,6 +144,9 @@ def render_detail(finding: Finding, now: datetime, unavailable: Iterable[str] = 
     out += _section("Missing tests", (_test_name(a) for a in finding.missing))
     out += _section("Next steps", finding.next_steps)
     out += _section("Not available", unavailable)
+    out += _section(
+        "Read in part (only the first page of results; older ones may be missing)", partial
+    )
     out += _section("Cautions", (c for c in finding.cautions if not _is_caution_line(c)))
     out.append(f"> {CAUTION}")
     return "\n".join(out)
@@ -126,16 +171,23 @@ def suggested_tests(findings: Sequence[Finding]) -> list[tuple[str, ...]]:
     return [tuple(a for a in f.missing if owner[a] == i) for i, f in enumerate(findings)]
 
 
-def _suggestions(finding: Finding, patient_id: str, tests: Iterable[str]) -> list[Suggestion]:
+def _suggestions(finding: Finding, order: OrderContext, tests: Iterable[str]) -> list[Suggestion]:
+    """One suggestion per offered test; with two or more, the test the finding names first
+    (the clinical core lists missing tests in the order its pathway asks for them) is marked
+    ``isRecommended`` as the usual next step (CDS Hooks 2.0.1, Suggestion)."""
     reason = f"Hyponatremia work-up: {FINDING_DISPLAY[finding.code]}"
+    offered = list(dict.fromkeys(tests))
+    first = finding.missing[0] if finding.missing else None
+    recommend = first if len(offered) > 1 and first in offered else None
     out: list[Suggestion] = []
-    for analyte in dict.fromkeys(tests):
+    for analyte in offered:
         name = _test_name(analyte)
-        resource = service_request(Analyte(analyte), patient_id, reason)
+        resource = service_request(Analyte(analyte), order, reason)
         out.append(
             Suggestion(
                 label=f"Order {name}"[:80],
                 uuid=str(uuid.uuid4()),
+                isRecommended=True if analyte == recommend else None,
                 actions=[
                     Action(type="create", description=f"Draft order for {name}", resource=resource)
                 ],
@@ -176,18 +228,30 @@ def render_card(
     unavailable: Iterable[str] = (),
     links: Iterable[Link] = (),
     tests: Iterable[str] | None = None,
+    partial: Iterable[str] = (),
+    patient_known: bool = True,
+    source_url: str | None = None,
+    order_context: OrderContext | None = None,
 ) -> Card:
     """The card of ``finding``; ``tests`` are the missing tests it offers as orders (default:
-    all of ``finding.missing``; see :func:`suggested_tests` for a whole response)."""
-    suggestions = _suggestions(finding, patient_id, finding.missing if tests is None else tests)
+    all of ``finding.missing``; see :func:`suggested_tests` for a whole response);
+    ``source_url`` the service's page explaining the finding (``/findings/{code}``)."""
+    suggestions = _suggestions(
+        finding,
+        order_context or OrderContext(patient_id=patient_id, authored_on=now),
+        finding.missing if tests is None else tests,
+    )
     weighty = finding.urgency in (Urgency.WARNING, Urgency.CRITICAL)
     return Card(
         uuid=str(uuid.uuid4()),
         summary=finding.summary,
-        detail=render_detail(finding, now, unavailable),
+        detail=render_detail(
+            finding, now, unavailable, partial=partial, patient_known=patient_known
+        ),
         indicator=finding.urgency.value,
         source=Source(
             label=SOURCE_LABEL,
+            url=source_url,
             topic=Coding(
                 system=TOPIC_SYSTEM, code=finding.code.value, display=FINDING_DISPLAY[finding.code]
             ),

@@ -67,8 +67,9 @@ def _date(resource: Mapping[str, Any]) -> str:
 
 def _matches(resource: Mapping[str, Any], name: str, value: str) -> bool:
     values = value.split(",")
-    if name == "patient":
-        return (_reference_id(resource, "subject") or _reference_id(resource, "patient")) == value
+    if name == "patient":  # the bare id or the typed form Patient/{id}
+        wanted = value.removeprefix("Patient/")
+        return (_reference_id(resource, "subject") or _reference_id(resource, "patient")) == wanted
     if name == "code":
         return _token_match(resource.get("code"), values) or _token_match(
             resource.get("medicationCodeableConcept"), values

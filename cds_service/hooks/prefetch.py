@@ -16,6 +16,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from cds_service.errors import UserError
+from cds_service.hooks.fetch import has_next
 
 
 @dataclass(slots=True)
@@ -28,12 +29,30 @@ class PrefetchState:
     unavailable: dict[str, str] = field(default_factory=dict)
     #: keys the client did not send at all (or sent as an OperationOutcome).
     to_fetch: list[str] = field(default_factory=list)
+    #: key -> why only the first page(s) of its paged Bundle were read.
+    partial: dict[str, str] = field(default_factory=dict)
 
-    def settle(self, key: str, data: dict[str, Any] | None, error: str | None) -> None:
-        """Record the outcome of fetching ``key`` ourselves."""
-        if error is None:
+    def paged(self) -> dict[str, dict[str, Any]]:
+        """Prefetched Bundles (by key) whose ``next`` link leads to more results."""
+        return {k: v for k, v in self.data.items() if v is not None and has_next(v)}
+
+    def settle(
+        self,
+        key: str,
+        data: dict[str, Any] | None,
+        error: str | None,
+        *,
+        partial: bool = False,
+    ) -> None:
+        """Record the outcome of fetching ``key`` ourselves (or of following its pages)."""
+        if partial and data is not None:
             self.data[key] = data
             self.unavailable.pop(key, None)
+            self.partial[key] = error or "stopped at the page limit (fhir.max_pages)"
+        elif error is None:
+            self.data[key] = data
+            self.unavailable.pop(key, None)
+            self.partial.pop(key, None)
         else:
             previous = self.unavailable.get(key)
             self.unavailable[key] = f"{previous}; {error}" if previous else error

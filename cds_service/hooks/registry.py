@@ -2,8 +2,16 @@
 
 Templates use only widely supported FHIR search parameters (``patient``, ``code`` token lists,
 ``status``, ``clinical-status``, ``_sort``, ``_count``) so that record systems can fill them.
+The patient is named in the typed reference form (``patient=Patient/{id}``): FHIR R4 search
+("reference" parameters) lets a server require the type, and every conformant server accepts
+the typed form, while some (Medplum, in the test suite) find nothing with a bare id.
+
 Sodium results have their own key, apart from the other chemistry, because the sodium series
-feeds the correction-rate surveillance and needs more history.
+feeds the correction-rate surveillance and needs more history. The other results are split
+by how often they are measured: one ``_sort=-date&_count=N`` page of every laboratory code
+together is filled by the frequent ones (bedside glucose every hour, daily weights) and can
+leave out the one urine osmolality or TSH the work-up turns on. Each rare group has its own
+query and page (:data:`LAB_GROUPS`), and discovery says so.
 """
 
 from __future__ import annotations
@@ -17,14 +25,59 @@ from cds_service.hooks.models import ServiceDescription, prune
 PATIENT = "{{context.patientId}}"
 LOINC_SYSTEM = "http://loinc.org"
 
-#: Prefetch keys whose data the services cannot work without (412 when unavailable).
-REQUIRED_KEYS: tuple[str, ...] = ("patient", "sodium")
-
-#: Analytes fetched under the ``labs`` key (everything but sodium).
-LAB_ANALYTES: tuple[Analyte, ...] = tuple(a for a in Analyte if a is not Analyte.SODIUM)
+#: Prefetch keys whose data the services cannot work without (412 when unavailable). A
+#: missing Patient is not among them: the cards then say that age and sex were not checked.
+REQUIRED_KEYS: tuple[str, ...] = ("sodium",)
 
 SODIUM_COUNT = 100
-LABS_COUNT = 200
+
+
+@dataclass(frozen=True, slots=True)
+class LabGroup:
+    """One Observation prefetch query: its analytes, page size and what it is for."""
+
+    analytes: tuple[Analyte, ...]
+    count: int
+    name: str  # readable, for "not available" and "first page only" notes
+
+
+#: The laboratory and body-measurement queries besides sodium, frequent results first.
+LAB_GROUPS: dict[str, LabGroup] = {
+    "labs": LabGroup(
+        (
+            Analyte.GLUCOSE,
+            Analyte.UREA_NITROGEN,
+            Analyte.CREATININE,
+            Analyte.POTASSIUM,
+            Analyte.EGFR,
+        ),
+        200,
+        "glucose, urea, creatinine and potassium",
+    ),
+    "osmolality": LabGroup((Analyte.OSMOLALITY,), 20, "measured serum osmolality"),
+    "urineStudies": LabGroup(
+        (
+            Analyte.URINE_OSMOLALITY,
+            Analyte.URINE_SODIUM,
+            Analyte.URINE_POTASSIUM,
+            Analyte.URINE_CREATININE,
+            Analyte.URINE_UREA_NITROGEN,
+            Analyte.URINE_URIC_ACID,
+            Analyte.URINE_VOLUME_24H,
+        ),
+        50,
+        "urine studies",
+    ),
+    "endocrine": LabGroup(
+        (Analyte.TSH, Analyte.FREE_T4, Analyte.CORTISOL), 20, "thyroid and adrenal tests"
+    ),
+    "solutes": LabGroup(
+        (Analyte.TRIGLYCERIDES, Analyte.TOTAL_PROTEIN, Analyte.URIC_ACID, Analyte.ETHANOL),
+        20,
+        "lipids, protein, uric acid and ethanol",
+    ),
+    "bodySize": LabGroup((Analyte.BODY_WEIGHT, Analyte.BODY_HEIGHT), 10, "weight and height"),
+}
 
 
 @dataclass(frozen=True, slots=True)
@@ -50,7 +103,11 @@ class Service:
 
 _USAGE = (
     "Adults (18 years and over). Needs read access to Patient, Observation (laboratory and "
-    "vital signs), MedicationRequest, MedicationStatement and Condition. Decision support for "
+    "vital signs), MedicationRequest, MedicationStatement and Condition. Laboratory results "
+    "are asked in separate prefetch queries (sodium; labs for glucose, urea, creatinine and "
+    "potassium; osmolality; urineStudies; endocrine; solutes; bodySize), each with its own "
+    "page size, so that frequent results such as bedside glucose or daily weights cannot fill "
+    "the page that a rare urine study or thyroid test needs. Decision support for "
     "licensed clinicians; every card must be checked against the patient and local protocols."
 )
 
@@ -110,19 +167,19 @@ def prefetch_templates() -> dict[str, str]:
 
 @cache
 def _templates() -> dict[str, str]:
+    def observations(analytes: tuple[Analyte, ...], count: int) -> str:
+        return (
+            f"Observation?patient=Patient/{PATIENT}&code={_code_tokens(*analytes)}"
+            f"&_sort=-date&_count={count}"
+        )
+
     return {
         "patient": f"Patient/{PATIENT}",
-        "sodium": (
-            f"Observation?patient={PATIENT}&code={_code_tokens(Analyte.SODIUM)}"
-            f"&_sort=-date&_count={SODIUM_COUNT}"
-        ),
-        "labs": (
-            f"Observation?patient={PATIENT}&code={_code_tokens(*LAB_ANALYTES)}"
-            f"&_sort=-date&_count={LABS_COUNT}"
-        ),
-        "medicationRequests": f"MedicationRequest?patient={PATIENT}&status=active",
-        "medicationStatements": f"MedicationStatement?patient={PATIENT}",
-        "conditions": f"Condition?patient={PATIENT}&clinical-status=active",
+        "sodium": observations((Analyte.SODIUM,), SODIUM_COUNT),
+        **{key: observations(g.analytes, g.count) for key, g in LAB_GROUPS.items()},
+        "medicationRequests": f"MedicationRequest?patient=Patient/{PATIENT}&status=active",
+        "medicationStatements": f"MedicationStatement?patient=Patient/{PATIENT}",
+        "conditions": f"Condition?patient=Patient/{PATIENT}&clinical-status=active",
     }
 
 

@@ -29,19 +29,36 @@ from cds_service.clinical.findings import Finding, FindingCode
 from cds_service.config import Settings
 from cds_service.errors import UserError
 from cds_service.fhir import build_context
+from cds_service.fhir.builders import OrderContext
 from cds_service.gcpause import collector_paused
 from cds_service.hooks import snapshots
-from cds_service.hooks.cards import one_per_code, render_card, suggested_tests
+from cds_service.hooks.access import (
+    AccessRefused,
+    Grant,
+    check_authorization,
+    https_required,
+    query_interaction,
+)
+from cds_service.hooks.cards import one_per_code, render_card, rests_on, suggested_tests
 from cds_service.hooks.fetch import fetch_all
 from cds_service.hooks.models import Card, HookRequest, HookResponse, Link, to_json
 from cds_service.hooks.prefetch import PrefetchState, check_prefetch
-from cds_service.hooks.registry import REQUIRED_KEYS, SERVICES, Service, fill, prefetch_templates
+from cds_service.hooks.registry import (
+    LAB_GROUPS,
+    REQUIRED_KEYS,
+    SERVICES,
+    Service,
+    fill,
+    prefetch_templates,
+)
 from cds_service.store.cards import CardLogRow, add_cards
 
 _log = logging.getLogger(__name__)
 
 #: A FHIR id (FHIR R4 ``id`` datatype); patient ids outside it never reach a query.
 FHIR_ID = re.compile(r"[A-Za-z0-9\-.]{1,64}")
+#: Ids the datatype allows that a URL path reads as a dot segment (RFC 3986 section 3.3).
+DOT_SEGMENTS = frozenset({".", ".."})
 
 #: Codes whose cards link to the trend view (work-up and correction-rate surveillance).
 TREND_CODES = frozenset(
@@ -64,11 +81,33 @@ TREND_CODES = frozenset(
 KEY_NAMES = {
     "patient": "patient demographics",
     "sodium": "sodium results",
-    "labs": "other laboratory results and body measurements",
+    **{key: group.name for key, group in LAB_GROUPS.items()},
     "medicationRequests": "active medication orders",
     "medicationStatements": "medication statements",
     "conditions": "active problems",
 }
+
+
+#: Which card carries the trend link when several could: the first of these codes present.
+TREND_OWNERS: tuple[FindingCode, ...] = (
+    FindingCode.CORRECTION_RATE,  # the trend is the evidence of an overcorrection
+    FindingCode.HYPOTONIC,
+    FindingCode.TONICITY_UNKNOWN,
+    FindingCode.ISOTONIC,
+    FindingCode.HYPERTONIC,
+    FindingCode.SIADH_PATTERN,
+    FindingCode.DILUTE_URINE,
+    FindingCode.LOW_URINE_SODIUM,
+    FindingCode.OSMOLAL_GAP,
+    FindingCode.ENDOCRINE_SCREEN,
+    FindingCode.DRUG_ASSOCIATED,
+)
+
+
+def trend_card(findings: list[Finding]) -> Finding | None:
+    """The one finding whose card offers the trend link (once per response)."""
+    by_code = {f.code: f for f in findings}
+    return next((by_code[c] for c in TREND_OWNERS if c in by_code), None)
 
 
 class HookError(Exception):
@@ -132,8 +171,12 @@ def parse_call(body: object, service_id: str | None = None) -> HookCall:
         if ctx.get(key) in (None, "", [], {}):
             raise HookError(400, f"context.{key} is required for the {service.hook} hook")
     patient_id = ctx.get("patientId")
-    if not isinstance(patient_id, str) or not FHIR_ID.fullmatch(patient_id):
-        raise HookError(400, "context.patientId must be a FHIR id")
+    if (
+        not isinstance(patient_id, str)
+        or not FHIR_ID.fullmatch(patient_id)
+        or patient_id in DOT_SEGMENTS
+    ):
+        raise HookError(400, "context.patientId must be a FHIR id (and not '.' or '..')")
     drafts: tuple[dict[str, Any], ...] = ()
     selections: tuple[str, ...] = ()
     if "draftOrders" in service.required_context:
@@ -171,6 +214,61 @@ def _first_error(exc: ValidationError) -> str:
     return f"{where}: {err.get('msg', 'invalid')}"
 
 
+def local_trial(settings: Settings) -> bool:
+    """A local trial: started without a configuration, or with authentication switched off
+    (DESIGN.md: ``auth.required = false`` only for local trials)."""
+    return settings.local_trial or not settings.auth.required
+
+
+def _patient_unusable(value: object, patient_id: str) -> bool:
+    """The prefetched ``patient`` gives no usable Patient: null, another resource type, or
+    another patient (the client's ``null`` for a read means it found nothing)."""
+    return not (
+        isinstance(value, Mapping)
+        and value.get("resourceType") == "Patient"
+        and value.get("id") in (None, patient_id)
+    )
+
+
+@dataclass(slots=True)
+class _Access:
+    """Whether this call may fetch from its fhirServer, the grant, and why not."""
+
+    server: str | None = None
+    grant: Grant | None = None
+    refused: str | None = None
+
+    def covers(self, query: str) -> bool:
+        return self.grant is None or self.grant.covers(*query_interaction(query))
+
+
+def _access(
+    call: HookCall, settings: Settings, http: object, caller: object, authenticator: Any
+) -> _Access:
+    """May this call fetch (see :mod:`cds_service.hooks.access`)? Raises HookError 401 for an
+    authorization that cannot be used for this patient."""
+    request = call.request
+    auth = request.fhirAuthorization
+    grant = None
+    if auth is not None:
+        try:
+            grant = check_authorization(auth, call.patient_id)
+        except AccessRefused as exc:
+            raise HookError(401, str(exc)) from None
+    server = request.fhirServer
+    if http is None or not server or authenticator is None:
+        return _Access(refused="no FHIR access to fetch it")
+    if not authenticator.fhir_server_allowed(caller, server):
+        return _Access(refused="no FHIR access to fetch it (fhirServer not allowed)")
+    trial = local_trial(settings)
+    why = https_required(server, local_trial=trial)
+    if why:
+        return _Access(refused=why)
+    if auth is None and not trial:
+        return _Access(refused="no fhirAuthorization to fetch it with")
+    return _Access(server=server, grant=grant)
+
+
 async def gather_data(
     call: HookCall,
     settings: Settings,
@@ -179,39 +277,57 @@ async def gather_data(
     caller: object = None,
     authenticator: Any = None,
 ) -> PrefetchState:
-    """Prefetch, then fetch what is missing when the caller may send us to its FHIR server."""
+    """Prefetch, then fetch what is missing (a null or unusable ``patient`` too) and the later
+    pages of paged prefetched Bundles, when the caller may send us to its FHIR server."""
     templates = prefetch_templates()
     try:
         state = check_prefetch(call.request.prefetch, list(templates))
     except UserError as exc:
         raise HookError(400, str(exc)) from None
     request = call.request
-    server = request.fhirServer
-    may_fetch = (
-        http is not None
-        and bool(server)
-        and authenticator is not None
-        and authenticator.fhir_server_allowed(caller, server)
-    )
-    if state.to_fetch and may_fetch:
-        assert server is not None and http is not None
-        token = request.fhirAuthorization.access_token if request.fhirAuthorization else None
-        queries = {key: fill(templates[key], request.context) for key in state.to_fetch}
-        results = await fetch_all(
-            http,
-            server,
-            queries,
-            token,
-            budget_seconds=settings.fhir.time_budget_seconds,
-            max_pages=settings.fhir.max_pages,
-        )
-        for key, result in results.items():
-            if result.error is not None:
-                _count_fetch_error(result.kind or "unknown")
-            state.settle(key, result.data, result.error)
-    else:
+    access = _access(call, settings, http, caller, authenticator)
+    if "patient" in state.data and _patient_unusable(state.data["patient"], call.patient_id):
+        state.to_fetch.append("patient")
+    queries = {key: fill(templates[key], request.context) for key in state.to_fetch}
+    paged = state.paged()
+    if access.server is None:
         for key in state.to_fetch:
-            state.settle(key, None, "not prefetched, and no FHIR access to fetch it")
+            if key in state.data:  # the client's null or unusable Patient stands
+                continue
+            state.settle(key, None, f"not prefetched, and {access.refused}")
+        for key in paged:
+            state.partial[key] = f"only the first page was sent, and {access.refused}"
+        return state
+    not_granted = [
+        k for k in [*queries, *paged] if not access.covers(fill(templates[k], request.context))
+    ]
+    for key in not_granted:
+        why = "the access token's scope does not grant this read"
+        if key in paged:
+            state.partial[key] = f"only the first page was sent, and {why}"
+            paged.pop(key)
+        else:
+            queries.pop(key)
+            if key not in state.data:
+                state.settle(key, None, f"not prefetched, and {why}")
+    assert http is not None
+    token = request.fhirAuthorization.access_token if request.fhirAuthorization else None
+    results = await fetch_all(
+        http,
+        access.server,
+        queries,
+        token,
+        budget_seconds=settings.fhir.time_budget_seconds,
+        max_pages=settings.fhir.max_pages,
+        continued=paged,
+    )
+    for key, result in results.items():
+        if result.error is not None:
+            _count_fetch_error(result.kind or "unknown")
+        if result.data is None and key in state.data:  # keep the client's null or Patient
+            state.unavailable[key] = result.error or "not available"
+            continue
+        state.settle(key, result.data, result.error, partial=result.partial)
     return state
 
 
@@ -264,6 +380,7 @@ async def evaluate(
             draft_orders=call.draft_orders,
             selections=call.selections,
             report_lines=False,  # the hook response does not carry the ingest report
+            partial_reads=state.partial,
         )
     ctx = ingested.context
     if call.service.hook == "patient-view":
@@ -279,6 +396,9 @@ async def evaluate(
         snapshot = _snapshot(settings, ctx, findings, thresholds, now)
 
     tests = suggested_tests(findings)
+    trend_owner = trend_card(findings)
+    order = OrderContext.from_hook(call.patient_id, call.request.context, now)
+    base = settings.server.public_base_url
 
     def render(links: list[Link]) -> list[Card]:
         return [
@@ -287,8 +407,16 @@ async def evaluate(
                 now=now,
                 patient_id=call.patient_id,
                 unavailable=unavailable,
-                links=links if f.code in TREND_CODES else (),
+                links=links if f is trend_owner else (),
                 tests=offered,
+                partial=[
+                    f"{KEY_NAMES.get(k, k)}: {state.partial.get(k, 'first page only')}"
+                    for k in ctx.partial_reads
+                    if rests_on(f.code, k)
+                ],
+                patient_known=ctx.patient.known,
+                source_url=f"{base}/findings/{f.code.value}",
+                order_context=order,
             )
             for f, offered in zip(findings, tests, strict=True)
         ]

@@ -11,13 +11,15 @@ from datetime import UTC, datetime
 from sqlalchemy import Engine, create_engine, event, make_url, text
 from sqlalchemy.orm import Session, sessionmaker
 
-from cds_service.store.schema import Base
+from cds_service.store import migrate as _migrate
 
 
 class Store:
-    """Owns one engine and its session factory; creates the tables on first use."""
+    """Owns one engine and its session factory; brings the schema to this code's revision
+    (Alembic, :mod:`cds_service.store.migrate`) when opened, or with ``migrate=False`` only
+    checks that it is there (``tonicity db upgrade`` ran first)."""
 
-    def __init__(self, url: str) -> None:
+    def __init__(self, url: str, *, migrate: bool = True) -> None:
         if not url or "://" not in url:
             raise ValueError(f"storage url {url!r} is not a database URL")
         self.url = url
@@ -34,12 +36,19 @@ class Store:
         self._sessions = sessionmaker(self.engine, expire_on_commit=False)
         self._log_writer: ThreadPoolExecutor | None = None
         self._log_writer_lock = threading.Lock()
-        Base.metadata.create_all(self.engine)
+        try:
+            if migrate:
+                _migrate.upgrade(self.engine)
+            else:
+                _migrate.check_current(self.engine)
+        except BaseException:
+            self.engine.dispose()
+            raise
 
     @property
     def safe_url(self) -> str:
         """The URL with any password masked, fit for messages and logs."""
-        return make_url(self.url).render_as_string(hide_password=True)
+        return safe_url(self.url)
 
     @contextmanager
     def session(self) -> Iterator[Session]:
@@ -91,6 +100,11 @@ class Store:
         if writer is not None:
             writer.shutdown(wait=True)  # queued records are written before the engine goes
         self.engine.dispose()
+
+
+def safe_url(url: str) -> str:
+    """``url`` with any password masked, fit for messages and logs."""
+    return make_url(url).render_as_string(hide_password=True)
 
 
 def as_utc(moment: datetime) -> datetime:

@@ -10,7 +10,8 @@ never receives feedback counts as ignored in the report.
 
 Choices of ours: ``overrideReason`` only with ``overridden`` and ``acceptedSuggestions`` only
 with ``accepted`` (the specification describes each for that outcome only); a timestamp without
-a zone is read as UTC (the specification says the value is in UTC); at most 500 items per body.
+a zone is read as UTC (the specification says the value is in UTC), and one that UTC cannot
+hold (past the calendar's end after conversion) is a 400; at most 500 items per body.
 """
 
 from __future__ import annotations
@@ -19,7 +20,14 @@ import json
 from datetime import datetime
 from typing import Literal
 
-from pydantic import BaseModel, ConfigDict, Field, ValidationError, model_validator
+from pydantic import (
+    BaseModel,
+    ConfigDict,
+    Field,
+    ValidationError,
+    field_validator,
+    model_validator,
+)
 from sqlalchemy import select
 
 from cds_service.errors import UserError
@@ -57,6 +65,16 @@ class FeedbackItem(_Model):
     acceptedSuggestions: list[AcceptedSuggestion] = Field(default_factory=list)
     overrideReason: OverrideReason | None = None
     outcomeTimestamp: datetime
+
+    @field_validator("outcomeTimestamp")
+    @classmethod
+    def _in_utc(cls, moment: datetime) -> datetime:
+        """The instant in UTC; one that UTC cannot hold (``9999-12-31T23:59:59-14:00`` is past
+        the calendar's end there) is refused like any invalid value."""
+        try:
+            return as_utc(moment)
+        except (OverflowError, ValueError):
+            raise ValueError("outcomeTimestamp is outside the years 1 to 9999 in UTC") from None
 
     @model_validator(mode="after")
     def _fits_outcome(self) -> FeedbackItem:

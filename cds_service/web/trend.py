@@ -2,14 +2,18 @@
 
 from __future__ import annotations
 
+import html
 import re
 import threading
 from collections import OrderedDict
 from dataclasses import dataclass
-from datetime import datetime, timedelta
+from datetime import UTC, datetime, timedelta, tzinfo
 from typing import Any
 
 from cds_service.clinical.findings import ValueName
+from cds_service.web.chart import hidden_before, over_limit, point_method, zone_name
+
+__all__ = ["hidden_before", "zone_name"]  # re-exported for the routes
 
 CACHE_SIZE = 64
 
@@ -39,15 +43,17 @@ _VALUE_LABELS: dict[str, str] = {
 _UNIT_TEXT = {"mosm/kg": "mOsm/kg", "1": "", "m[IU]/L": "mIU/L", "ug/dL": "µg/dL"}
 
 
-def chart_svg(key: str, payload: dict[str, Any]) -> str:
-    """The chart for one snapshot (``key`` = its token hash), rendered once and kept."""
+def chart_svg(key: str, payload: dict[str, Any], tz: tzinfo = UTC, view: str = "episode") -> str:
+    """The chart for one snapshot (``key`` = its token hash), rendered once per time zone and
+    view and kept."""
+    key = f"{key}|{zone_name(tz)}|{view}"
     with _cache_lock:
         if key in _cache:
             _cache.move_to_end(key)
             return _cache[key]
     from cds_service.web.chart import render_trend_svg
 
-    svg = _inline(render_trend_svg(payload))
+    svg = _point_titles(_inline(render_trend_svg(payload, tz, view)), payload, tz)
     with _cache_lock:
         _cache[key] = svg
         while len(_cache) > CACHE_SIZE:
@@ -68,14 +74,35 @@ def _inline(svg: str) -> str:
     )
 
 
+def _point_titles(svg: str, payload: dict[str, Any], tz: tzinfo) -> str:
+    """A hover text on every sodium point: value, method, local time and UTC."""
+    over = over_limit(payload)
+    for i, p in enumerate(payload.get("sodium") or []):
+        local, utc = when(p["time"], tz), when(p["time"])
+        text = f"Sodium {number(p['value'])} mmol/L, {point_method(p)}"
+        if "preliminary" in (p.get("note") or ""):
+            text += ", preliminary"
+        if i in over:
+            text += ", above the correction limit"
+        text += f", {local}" + (f" ({utc})" if local != utc else "")
+        svg = svg.replace(
+            f'<g id="sodium-point-{i}">',
+            f'<g id="sodium-point-{i}"><title>{html.escape(text)}</title>',
+            1,
+        )
+    return svg
+
+
 def unit_text(unit: str) -> str:
     return _UNIT_TEXT.get(unit, unit)
 
 
-def when(iso: str | None) -> str:
+def when(iso: str | None, tz: tzinfo = UTC) -> str:
+    """A payload time (UTC, ISO 8601) as a clinician reads it, in ``tz``."""
     if not iso:
         return ""
-    return datetime.fromisoformat(iso).strftime("%d %b %Y %H:%M UTC")
+    t = datetime.fromisoformat(iso).astimezone(tz)
+    return t.strftime("%d %b %Y %H:%M ") + (zone_name(tz) if tz is UTC else t.strftime("%Z"))
 
 
 def number(v: object) -> str:
@@ -86,14 +113,15 @@ def number(v: object) -> str:
 
 @dataclass(frozen=True, slots=True)
 class SodiumRow:
-    time: str
+    time: str  # in the institution's time zone
+    utc: str  # the same instant in UTC
     value: str
     change: str  # from the episode start, signed
     note: str
     limit: str  # the limit that applies at that time, as text
 
 
-def sodium_rows(payload: dict[str, Any]) -> list[SodiumRow]:
+def sodium_rows(payload: dict[str, Any], tz: tzinfo = UTC) -> list[SodiumRow]:
     lim = payload.get("limits") or {}
     t0 = datetime.fromisoformat(lim["episode_start"]) if lim.get("episode_start") else None
     v0 = lim.get("start_value")
@@ -110,25 +138,39 @@ def sodium_rows(payload: dict[str, Any]) -> list[SodiumRow]:
                     limit = f"+{number(lim[key])} in {hours} h{over}"
                     break
         note = p.get("note", "")
-        rows.append(SodiumRow(when(p["time"]), number(p["value"]), change, note, limit))
+        rows.append(
+            SodiumRow(when(p["time"], tz), when(p["time"]), number(p["value"]), change, note, limit)
+        )
     return rows
 
 
-def describe(payload: dict[str, Any]) -> str:
+def describe(payload: dict[str, Any], tz: tzinfo = UTC, view: str = "episode") -> str:
     """One paragraph saying what the chart shows, for screen readers and a quick read."""
     na = payload.get("sodium") or []
     if not na:
         return "No serum sodium results were available for this evaluation."
     values = [float(p["value"]) for p in na]
     parts = [
-        f"{len(na)} serum sodium result{'s' if len(na) != 1 else ''} from {when(na[0]['time'])} "
-        f"to {when(na[-1]['time'])}, lowest {number(min(values))} and latest "
-        f"{number(values[-1])} mmol/L."
+        f"{len(na)} serum sodium result{'s' if len(na) != 1 else ''} from "
+        f"{when(na[0]['time'], tz)} to {when(na[-1]['time'], tz)}, lowest "
+        f"{number(min(values))} and latest {number(values[-1])} mmol/L."
     ]
+    hidden = hidden_before(payload, view)
+    if hidden:
+        parts.append(
+            f"The chart shows the current episode; {hidden} earlier result"
+            f"{'s are' if hidden != 1 else ' is'} in the table below."
+        )
+    over = over_limit(payload)
+    if over:
+        parts.append(
+            f"{len(over)} result{'s' if len(over) != 1 else ''} rose above the correction "
+            "limit that applied at the time (ringed)."
+        )
     lim = payload.get("limits") or {}
     if lim.get("episode_start") and lim.get("start_value") is not None:
         parts.append(
-            f"The episode starts at {when(lim['episode_start'])} with "
+            f"The episode starts at {when(lim['episode_start'], tz)} with "
             f"{number(lim['start_value'])} mmol/L; the shaded band shows the allowed rise of "
             f"{number(lim['limit_24h'])} mmol/L in the first 24 hours and "
             f"{number(lim['limit_48h'])} mmol/L in 48 hours."
@@ -138,7 +180,7 @@ def describe(payload: dict[str, Any]) -> str:
         parts.append(
             "Markers: "
             + "; ".join(
-                f"{m['label']} {number(m['value'])} {unit_text(m['unit'])} at {when(m['time'])}"
+                f"{m['label']} {number(m['value'])} {unit_text(m['unit'])} at {when(m['time'], tz)}"
                 for m in markers
             )
             + "."
@@ -147,7 +189,7 @@ def describe(payload: dict[str, Any]) -> str:
     if starts:
         parts.append(
             "Vertical lines: "
-            + "; ".join(f"{s['label']} at {when(s['time'])}" for s in starts)
+            + "; ".join(f"{s['label']} at {when(s['time'], tz)}" for s in starts)
             + "."
         )
     return " ".join(parts)

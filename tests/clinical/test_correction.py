@@ -73,8 +73,11 @@ def test_other_high_risk_reasons(th: Thresholds) -> None:
     assert applicable_limits(plain, th).high_risk_reasons == ()
     low_k = make_ctx({Analyte.POTASSIUM: 3.1}, series={Analyte.SODIUM: base})
     assert "hypokalemia" in applicable_limits(low_k, th).high_risk_reasons[0]
-    for cat in (ConditionCategory.ALCOHOL_USE_DISORDER, ConditionCategory.MALNUTRITION,
-                ConditionCategory.CIRRHOSIS):
+    for cat in (
+        ConditionCategory.ALCOHOL_USE_DISORDER,
+        ConditionCategory.MALNUTRITION,
+        ConditionCategory.CIRRHOSIS,
+    ):
         ctx = make_ctx(series={Analyte.SODIUM: base}, conditions=[cat])
         assert applicable_limits(ctx, th).limit_24h == 8
 
@@ -93,8 +96,11 @@ def test_overcorrection_into_the_normal_range_is_still_seen(th: Thresholds) -> N
 
 
 def test_episode_start_is_the_nadir(th: Thresholds) -> None:
-    ctx = make_ctx(series={Analyte.SODIUM: sodium_series([(300, 126), (290, 140), (40, 124),
-                                                           (30, 119), (5, 127)])})
+    ctx = make_ctx(
+        series={
+            Analyte.SODIUM: sodium_series([(300, 126), (290, 140), (40, 124), (30, 119), (5, 127)])
+        }
+    )
     assert episode_start(ctx) == NOW - timedelta(hours=30)
     assert episode_start(make_ctx({Analyte.SODIUM: 140})) is None
 
@@ -105,16 +111,15 @@ def test_no_episode_without_low_sodium(th: Thresholds) -> None:
     assert applicable_limits(ctx, th).limit_24h == 10
 
 
-points = st.lists(
-    st.tuples(st.floats(0, 200), st.integers(100, 145)), min_size=1, max_size=12
-)
+points = st.lists(st.tuples(st.floats(0, 200), st.integers(100, 145)), min_size=1, max_size=12)
 
 
 @given(data=points, seed=st.randoms())
 def test_window_maxima_do_not_depend_on_input_order(data: list, seed) -> None:  # type: ignore[no-untyped-def]
     # Law: the largest rise is a property of the set of results, not of their order.
-    results = [lab(Analyte.SODIUM, v, h, source_id=f"Observation/n{i}")
-               for i, (h, v) in enumerate(data)]
+    results = [
+        lab(Analyte.SODIUM, v, h, source_id=f"Observation/n{i}") for i, (h, v) in enumerate(data)
+    ]
     shuffled = list(results)
     seed.shuffle(shuffled)
     for hours in (24, 48):

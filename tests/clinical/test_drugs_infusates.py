@@ -61,20 +61,41 @@ def test_active_statuses(kind: str, status: str, active: bool) -> None:
         (DraftFluid("MedicationRequest/1", "x", named_solution="nacl_3"), 513, "hypertonic"),
         (DraftFluid("MedicationRequest/2", "x", nacl_percent=0.9), 154, "isotonic"),
         (DraftFluid("MedicationRequest/3", "x", nacl_percent=0.45), 77, "hypotonic"),
-        (DraftFluid("MedicationRequest/4", "x", named_solution="lactated_ringers"), 134,
-         "isotonic"),
+        (
+            DraftFluid("MedicationRequest/4", "x", named_solution="lactated_ringers"),
+            134,
+            "isotonic",
+        ),
         (DraftFluid("MedicationRequest/5", "x", dextrose_percent=5), 0, "hypotonic"),
-        (DraftFluid("MedicationRequest/6", "x", nacl_percent=0.45, dextrose_percent=5,
-                    added_potassium_mmol_per_l=20), 97, "hypotonic"),
-        (DraftFluid("MedicationRequest/7", "Sodium chloride 3% (hypertonic saline) 250 mL"),
-         513, "hypertonic"),
+        (
+            DraftFluid(
+                "MedicationRequest/6",
+                "x",
+                nacl_percent=0.45,
+                dextrose_percent=5,
+                added_potassium_mmol_per_l=20,
+            ),
+            97,
+            "hypotonic",
+        ),
+        (
+            DraftFluid("MedicationRequest/7", "Sodium chloride 3% (hypertonic saline) 250 mL"),
+            513,
+            "hypertonic",
+        ),
         (DraftFluid("MedicationRequest/8", "D5W 1000 mL"), 0, "hypotonic"),
-        (DraftFluid("MedicationRequest/9", "x", named_solution="nacl_0_9",
-                    added_potassium_mmol_per_l=20), 174, "isotonic"),
+        (
+            DraftFluid(
+                "MedicationRequest/9", "x", named_solution="nacl_0_9", added_potassium_mmol_per_l=20
+            ),
+            174,
+            "isotonic",
+        ),
     ],
 )
-def test_fluid_resolution(th: Thresholds, draft: DraftFluid, na_plus_k: float,
-                          tonicity: str) -> None:
+def test_fluid_resolution(
+    th: Thresholds, draft: DraftFluid, na_plus_k: float, tonicity: str
+) -> None:
     fluid = resolve(draft, th)
     assert fluid is not None
     assert fluid.sodium_plus_potassium == pytest.approx(na_plus_k, abs=0.5)

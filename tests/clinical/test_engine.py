@@ -37,14 +37,18 @@ def values(f: Finding) -> dict[ValueName, float | str]:
 
 # --- Patient-view -------------------------------------------------------------------------------
 
+
 def test_normal_sodium_gives_no_findings(th: Thresholds) -> None:
     # DESIGN.md contract: a normal serum sodium gives no cards.
     assert evaluate_workup(make_ctx({A.SODIUM: 139, A.GLUCOSE: 90}), th) == []
 
 
 def test_child_gets_only_out_of_scope(th: Thresholds) -> None:
-    ctx = make_ctx({A.SODIUM: 118, A.OSMOLALITY: 250}, age=12, fluids=[
-        DraftFluid("MedicationRequest/f", "x", nacl_percent=3)])
+    ctx = make_ctx(
+        {A.SODIUM: 118, A.OSMOLALITY: 250},
+        age=12,
+        fluids=[DraftFluid("MedicationRequest/f", "x", nacl_percent=3)],
+    )
     for evaluate in (evaluate_workup, evaluate_orders):
         (only,) = evaluate(ctx, th)
         assert only.code is C.OUT_OF_SCOPE and not only.values
@@ -53,15 +57,25 @@ def test_child_gets_only_out_of_scope(th: Thresholds) -> None:
 def test_hypotonic_siadh_pattern(th: Thresholds) -> None:
     # Spasovski 2014 (from memory): osm < 275, urine osm > 100, urine Na > 30 -> SIADH
     # considered; thyroid and adrenal function must be checked.
-    ctx = make_ctx({A.SODIUM: 121, A.OSMOLALITY: 256, A.GLUCOSE: 95, A.UREA_NITROGEN: 8,
-                    A.URINE_OSMOLALITY: 450, A.URINE_SODIUM: 62, A.URINE_POTASSIUM: 40},
-                   meds=[("sertraline", "active")])
+    ctx = make_ctx(
+        {
+            A.SODIUM: 121,
+            A.OSMOLALITY: 256,
+            A.GLUCOSE: 95,
+            A.UREA_NITROGEN: 8,
+            A.URINE_OSMOLALITY: 450,
+            A.URINE_SODIUM: 62,
+            A.URINE_POTASSIUM: 40,
+        },
+        meds=[("sertraline", "active")],
+    )
     found = by_code(evaluate_workup(ctx, th))
     assert set(found) == {C.HYPOTONIC, C.SIADH_PATTERN, C.DRUG_ASSOCIATED, C.ENDOCRINE_SCREEN}
     hypo = found[C.HYPOTONIC]
     assert hypo.urgency is Urgency.CRITICAL  # profound (< 125)
-    assert hypo.summary == ("Sodium 121 mmol/L (profound), measured osmolality 256 mOsm/kg: "
-                            "hypotonic hyponatremia")
+    assert hypo.summary == (
+        "Sodium 121 mmol/L (profound), measured osmolality 256 mOsm/kg: hypotonic hyponatremia"
+    )
     assert values(hypo)[V.SEVERITY] == "profound"
     # Dorwart & Chalmers 1975: 2 x 121 + 95/18 + 8/2.8 = 250.1
     assert values(hypo)[V.CALCULATED_OSMOLALITY] == pytest.approx(250.1, abs=0.05)
@@ -76,9 +90,17 @@ def test_hypotonic_siadh_pattern(th: Thresholds) -> None:
 
 
 def test_diuretic_and_endocrine_results_change_the_criteria(th: Thresholds) -> None:
-    ctx = make_ctx({A.SODIUM: 128, A.OSMOLALITY: 268, A.URINE_OSMOLALITY: 380,
-                    A.URINE_SODIUM: 55, A.TSH: 1.8, A.CORTISOL: 19},
-                   meds=[("hydrochlorothiazide", "active")])
+    ctx = make_ctx(
+        {
+            A.SODIUM: 128,
+            A.OSMOLALITY: 268,
+            A.URINE_OSMOLALITY: 380,
+            A.URINE_SODIUM: 55,
+            A.TSH: 1.8,
+            A.CORTISOL: 19,
+        },
+        meds=[("hydrochlorothiazide", "active")],
+    )
     found = by_code(evaluate_workup(ctx, th))
     assert C.ENDOCRINE_SCREEN not in found
     siadh = found[C.SIADH_PATTERN]
@@ -128,8 +150,10 @@ def test_osmolal_gap(th: Thresholds) -> None:
 def test_dilute_urine_and_low_urine_sodium(th: Thresholds) -> None:
     # Spasovski 2014 (from memory): urine osm <= 100 -> relative excess water intake;
     # urine Na <= 30 -> low effective arterial blood volume.
-    ctx = make_ctx({A.SODIUM: 127, A.OSMOLALITY: 258, A.URINE_OSMOLALITY: 70,
-                    A.URINE_SODIUM: 12}, conditions=[ConditionCategory.HEART_FAILURE])
+    ctx = make_ctx(
+        {A.SODIUM: 127, A.OSMOLALITY: 258, A.URINE_OSMOLALITY: 70, A.URINE_SODIUM: 12},
+        conditions=[ConditionCategory.HEART_FAILURE],
+    )
     found = by_code(evaluate_workup(ctx, th))
     assert {C.DILUTE_URINE, C.LOW_URINE_SODIUM} <= set(found)
     assert C.SIADH_PATTERN not in found
@@ -140,8 +164,9 @@ def test_dilute_urine_and_low_urine_sodium(th: Thresholds) -> None:
 
 def test_reset_osmostat_hint(th: Thresholds) -> None:
     series = sodium_series([(24 * 20, 132), (24 * 10, 131), (2, 132)])
-    ctx = make_ctx({A.OSMOLALITY: 268, A.URINE_OSMOLALITY: 300, A.URINE_SODIUM: 50},
-                   series={A.SODIUM: series})
+    ctx = make_ctx(
+        {A.OSMOLALITY: 268, A.URINE_OSMOLALITY: 300, A.URINE_SODIUM: 50}, series={A.SODIUM: series}
+    )
     hypo = by_code(evaluate_workup(ctx, th))[C.HYPOTONIC]
     assert any("reset osmostat" in d for d in hypo.details)
 
@@ -154,10 +179,16 @@ def test_correction_rate_on_patient_view(th: Thresholds) -> None:
 
 
 def test_implausible_results(th: Thresholds) -> None:
-    bad_na = RejectedResult(A.SODIUM, "1390 mmol/L", "outside the plausible range",
-                            NOW - timedelta(hours=1), "Observation/na-bad")
-    bad_tsh = RejectedResult(A.TSH, "2.1 furlongs", "unit cannot be converted", None,
-                             "Observation/tsh-bad")
+    bad_na = RejectedResult(
+        A.SODIUM,
+        "1390 mmol/L",
+        "outside the plausible range",
+        NOW - timedelta(hours=1),
+        "Observation/na-bad",
+    )
+    bad_tsh = RejectedResult(
+        A.TSH, "2.1 furlongs", "unit cannot be converted", None, "Observation/tsh-bad"
+    )
     normal = make_ctx({A.SODIUM: 140}, rejected=[bad_tsh])
     assert evaluate_workup(normal, th) == []
     normal = make_ctx({A.SODIUM: 140}, rejected=[bad_na, bad_tsh])
@@ -172,11 +203,15 @@ def test_implausible_results(th: Thresholds) -> None:
 
 # --- Orders -------------------------------------------------------------------------------------
 
+
 def test_hypotonic_fluid_order_suggests_removal(th: Thresholds) -> None:
-    ctx = make_ctx({A.SODIUM: 127}, fluids=[
-        DraftFluid("MedicationRequest/half", "0.45% NaCl 1 L", nacl_percent=0.45),
-        DraftFluid("MedicationRequest/other", "D5W", dextrose_percent=5, selected=False),
-    ])
+    ctx = make_ctx(
+        {A.SODIUM: 127},
+        fluids=[
+            DraftFluid("MedicationRequest/half", "0.45% NaCl 1 L", nacl_percent=0.45),
+            DraftFluid("MedicationRequest/other", "D5W", dextrose_percent=5, selected=False),
+        ],
+    )
     found = by_code(evaluate_orders(ctx, th))
     f = found[C.HYPOTONIC_FLUID_ORDER]
     assert f.urgency is Urgency.WARNING and f.remove_draft == "MedicationRequest/half"
@@ -186,32 +221,45 @@ def test_hypotonic_fluid_order_suggests_removal(th: Thresholds) -> None:
 
 
 def test_no_fluid_finding_when_sodium_is_normal(th: Thresholds) -> None:
-    ctx = make_ctx({A.SODIUM: 140}, fluids=[DraftFluid("MedicationRequest/h", "x",
-                                                        nacl_percent=0.45)])
+    ctx = make_ctx(
+        {A.SODIUM: 140}, fluids=[DraftFluid("MedicationRequest/h", "x", nacl_percent=0.45)]
+    )
     assert evaluate_orders(ctx, th) == []
 
 
 def test_isotonic_fluid_mentions_urine_osmolality(th: Thresholds) -> None:
     # Spasovski 2014 (from memory): in SIADH with urine osm above the infusate's, isotonic
     # saline can lower sodium.
-    ctx = make_ctx({A.SODIUM: 126, A.URINE_OSMOLALITY: 520}, fluids=[
-        DraftFluid("MedicationRequest/ns", "x", named_solution="nacl_0_9")])
+    ctx = make_ctx(
+        {A.SODIUM: 126, A.URINE_OSMOLALITY: 520},
+        fluids=[DraftFluid("MedicationRequest/ns", "x", named_solution="nacl_0_9")],
+    )
     f = by_code(evaluate_orders(ctx, th))[C.ISOTONIC_FLUID_ORDER]
     assert f.urgency is Urgency.INFO
     assert "520" in f.details[0] and "308" in f.details[0]
-    unknown = make_ctx({A.SODIUM: 126}, fluids=[
-        DraftFluid("MedicationRequest/ns", "x", named_solution="nacl_0_9")])
+    unknown = make_ctx(
+        {A.SODIUM: 126}, fluids=[DraftFluid("MedicationRequest/ns", "x", named_solution="nacl_0_9")]
+    )
     assert by_code(evaluate_orders(unknown, th))[C.ISOTONIC_FLUID_ORDER].missing == (
-        "urine_osmolality",)
+        "urine_osmolality",
+    )
 
 
 def test_hypertonic_saline_adrogue_madias_example(th: Thresholds) -> None:
     # Adrogué & Madias 2000 NEJM worked example (from memory): elderly woman, 50 kg, sodium
     # 108; 1 L of 3 % saline raises sodium 17.2 mmol/L. Sodium <= 105 is not reached, so the
     # ordinary 10 mmol/L limit applies: 10 / 17.2 = 0.58 L.
-    ctx = make_ctx({A.SODIUM: 108}, age=78, sex=Sex.FEMALE, weight=50, fluids=[
-        DraftFluid("MedicationRequest/hts", "3% NaCl", named_solution="nacl_3",
-                   rate_ml_per_h=40)])
+    ctx = make_ctx(
+        {A.SODIUM: 108},
+        age=78,
+        sex=Sex.FEMALE,
+        weight=50,
+        fluids=[
+            DraftFluid(
+                "MedicationRequest/hts", "3% NaCl", named_solution="nacl_3", rate_ml_per_h=40
+            )
+        ],
+    )
     f = by_code(evaluate_orders(ctx, th))[C.HYPERTONIC_SALINE_ORDER]
     v = values(f)
     assert v[V.TOTAL_BODY_WATER] == 22.5
@@ -226,9 +274,14 @@ def test_hypertonic_saline_adrogue_madias_example(th: Thresholds) -> None:
 
 def test_hypertonic_saline_high_risk_limit(th: Thresholds) -> None:
     # Verbalis 2013: alcohol use disorder -> 8 mmol/L in 24 h; 8 / 17.2 = 0.47 L.
-    ctx = make_ctx({A.SODIUM: 108}, age=78, sex=Sex.FEMALE, weight=50,
-                   conditions=[ConditionCategory.ALCOHOL_USE_DISORDER],
-                   fluids=[DraftFluid("MedicationRequest/hts", "x", nacl_percent=3)])
+    ctx = make_ctx(
+        {A.SODIUM: 108},
+        age=78,
+        sex=Sex.FEMALE,
+        weight=50,
+        conditions=[ConditionCategory.ALCOHOL_USE_DISORDER],
+        fluids=[DraftFluid("MedicationRequest/hts", "x", nacl_percent=3)],
+    )
     f = by_code(evaluate_orders(ctx, th))[C.HYPERTONIC_SALINE_ORDER]
     assert values(f)[V.MAX_VOLUME_24H] == pytest.approx(0.47, abs=0.01)
     assert any("alcohol use disorder" in d for d in f.details)
@@ -257,8 +310,13 @@ def test_drug_and_vaptan_orders(th: Thresholds) -> None:
     assert risk.remove_draft == "MedicationRequest/cbz" and "carbamazepine" in risk.summary.lower()
     vaptan = found[C.VAPTAN_ORDER]
     text = " ".join(vaptan.cautions).lower()
-    for phrase in ("overcorrection", "sodium every", "fluid in the first 24 h", "liver",
-                   "hypovolemic"):
+    for phrase in (
+        "overcorrection",
+        "sodium every",
+        "fluid in the first 24 h",
+        "liver",
+        "hypovolemic",
+    ):
         assert phrase in text
     normal = by_code(evaluate_orders(make_ctx({A.SODIUM: 138}, drafts=drafts), th))
     assert set(normal) == {C.VAPTAN_ORDER}  # vaptan always; drug risk only when Na < 135
@@ -267,38 +325,66 @@ def test_drug_and_vaptan_orders(th: Thresholds) -> None:
 # --- Laws ---------------------------------------------------------------------------------------
 
 analytes = st.dictionaries(
-    st.sampled_from([A.SODIUM, A.OSMOLALITY, A.GLUCOSE, A.UREA_NITROGEN, A.URINE_OSMOLALITY,
-                     A.URINE_SODIUM, A.URINE_POTASSIUM, A.TRIGLYCERIDES, A.TOTAL_PROTEIN,
-                     A.TSH, A.CORTISOL, A.POTASSIUM, A.URIC_ACID]),
+    st.sampled_from(
+        [
+            A.SODIUM,
+            A.OSMOLALITY,
+            A.GLUCOSE,
+            A.UREA_NITROGEN,
+            A.URINE_OSMOLALITY,
+            A.URINE_SODIUM,
+            A.URINE_POTASSIUM,
+            A.TRIGLYCERIDES,
+            A.TOTAL_PROTEIN,
+            A.TSH,
+            A.CORTISOL,
+            A.POTASSIUM,
+            A.URIC_ACID,
+        ]
+    ),
     st.one_of(st.floats(0.5, 2000), st.sampled_from([0.0, 1e-9, 1e7])),
 )
-fluids = st.lists(st.builds(
-    DraftFluid, resource_id=st.just("MedicationRequest/f"), display=st.sampled_from(
-        ["3% saline", "D5W", "NS", "x", "lactated Ringer's"]),
-    nacl_percent=st.one_of(st.none(), st.sampled_from([0.45, 0.9, 3.0])),
-    rate_ml_per_h=st.one_of(st.none(), st.floats(1, 500)),
-), max_size=3)
-drafts = st.lists(st.builds(
-    DraftMedication, resource_id=st.just("MedicationRequest/m"), display=st.just("x"),
-    names=st.tuples(st.sampled_from(["tolvaptan", "sertraline", "tramadol", "paracetamol"])),
-    rxnorm=st.just(()),
-), max_size=3)
+fluids = st.lists(
+    st.builds(
+        DraftFluid,
+        resource_id=st.just("MedicationRequest/f"),
+        display=st.sampled_from(["3% saline", "D5W", "NS", "x", "lactated Ringer's"]),
+        nacl_percent=st.one_of(st.none(), st.sampled_from([0.45, 0.9, 3.0])),
+        rate_ml_per_h=st.one_of(st.none(), st.floats(1, 500)),
+    ),
+    max_size=3,
+)
+drafts = st.lists(
+    st.builds(
+        DraftMedication,
+        resource_id=st.just("MedicationRequest/m"),
+        display=st.just("x"),
+        names=st.tuples(st.sampled_from(["tolvaptan", "sertraline", "tramadol", "paracetamol"])),
+        rxnorm=st.just(()),
+    ),
+    max_size=3,
+)
 
 
 @settings(max_examples=150, deadline=None)
-@given(labs=analytes, na=st.one_of(st.floats(95, 150), st.sampled_from([0.0, 0.5, 1e6])),
-       fl=fluids, dr=drafts,
-       sex=st.sampled_from(list(Sex)),
-       weight=st.one_of(st.none(), st.floats(30, 200), st.just(0.0)),
-       conditions=st.lists(st.sampled_from(list(ConditionCategory)), max_size=3),
-       history=st.lists(st.tuples(st.floats(0, 100), st.floats(100, 150)), max_size=6))
+@given(
+    labs=analytes,
+    na=st.one_of(st.floats(95, 150), st.sampled_from([0.0, 0.5, 1e6])),
+    fl=fluids,
+    dr=drafts,
+    sex=st.sampled_from(list(Sex)),
+    weight=st.one_of(st.none(), st.floats(30, 200), st.just(0.0)),
+    conditions=st.lists(st.sampled_from(list(ConditionCategory)), max_size=3),
+    history=st.lists(st.tuples(st.floats(0, 100), st.floats(100, 150)), max_size=6),
+)
 def test_engine_laws(labs, na, fl, dr, sex, weight, conditions, history) -> None:  # type: ignore[no-untyped-def]
     # DESIGN.md contract: at most one finding per code, summaries under 140 characters, value
     # names and units from the contract table; every finding carries the standing caution.
     labs[A.SODIUM] = na
     series = {A.SODIUM: sodium_series([*history, (1, na)])}
-    ctx = make_ctx(labs, sex=sex, weight=weight, conditions=conditions, fluids=fl, drafts=dr,
-                   series=series)
+    ctx = make_ctx(
+        labs, sex=sex, weight=weight, conditions=conditions, fluids=fl, drafts=dr, series=series
+    )
     for evaluate in (evaluate_workup, evaluate_orders):
         found = evaluate(ctx, TH)
         codes = [f.code for f in found]
@@ -317,13 +403,24 @@ def test_engine_laws(labs, na, fl, dr, sex, weight, conditions, history) -> None
 
 
 def test_supplemental_siadh_criteria_from_fractional_excretions(th: Thresholds) -> None:
-    # Fenske 2008 (from memory): FE urate > 12 % supports SIADH; Spasovski 2014 (from memory):
+    # Fenske 2008 (JCEM 93:2991, Abstract, Results: FE urate cut-off 12 %) supports SIADH;
+    # Spasovski 2014 (supplemental criteria table, not yet read in the original):
     # FE urea > 55 %, uric acid < 4 mg/dL. FE urate = 40 x 0.8 / (3 x 60) = 17.8 %;
     # FE urea = 600 x 0.8 / (8 x 60) = 100 %.
-    ctx = make_ctx({A.SODIUM: 127, A.OSMOLALITY: 262, A.URINE_OSMOLALITY: 420,
-                    A.URINE_SODIUM: 70, A.URIC_ACID: 3.0, A.URINE_URIC_ACID: 40,
-                    A.CREATININE: 0.8, A.URINE_CREATININE: 60, A.UREA_NITROGEN: 8,
-                    A.URINE_UREA_NITROGEN: 600})
+    ctx = make_ctx(
+        {
+            A.SODIUM: 127,
+            A.OSMOLALITY: 262,
+            A.URINE_OSMOLALITY: 420,
+            A.URINE_SODIUM: 70,
+            A.URIC_ACID: 3.0,
+            A.URINE_URIC_ACID: 40,
+            A.CREATININE: 0.8,
+            A.URINE_CREATININE: 60,
+            A.UREA_NITROGEN: 8,
+            A.URINE_UREA_NITROGEN: 600,
+        }
+    )
     siadh = by_code(evaluate_workup(ctx, th))[C.SIADH_PATTERN]
     text = "\n".join(siadh.details)
     assert "✓ met: fractional excretion of uric acid > 12 % (17.8 %)" in text
@@ -333,8 +430,10 @@ def test_supplemental_siadh_criteria_from_fractional_excretions(th: Thresholds) 
 
 def test_hypertonic_without_hyperglycemia_names_other_osmoles(th: Thresholds) -> None:
     # Spasovski 2014 (from memory): > 295 mOsm/kg without hyperglycemia -> mannitol, contrast...
-    ctx = make_ctx({A.SODIUM: 131, A.OSMOLALITY: 318, A.GLUCOSE: 110, A.UREA_NITROGEN: 14},
-                   meds=[("mannitol", "active")])
+    ctx = make_ctx(
+        {A.SODIUM: 131, A.OSMOLALITY: 318, A.GLUCOSE: 110, A.UREA_NITROGEN: 14},
+        meds=[("mannitol", "active")],
+    )
     found = by_code(evaluate_workup(ctx, th))
     hyper = found[C.HYPERTONIC]
     assert V.CORRECTED_SODIUM_KATZ not in values(hyper)
@@ -356,7 +455,8 @@ def test_most_urgent_first(th: Thresholds) -> None:
 def test_dilute_urine_with_measured_solute_excretion(th: Thresholds) -> None:
     # Berl 2008 (from memory): urine flow = solute excretion / urine osmolality; 80 mOsm/kg
     # in 3 L is 240 mOsm/day, which at 50 mOsm/kg allows at most 4.8 L/day.
-    ctx = make_ctx({A.SODIUM: 126, A.OSMOLALITY: 259, A.URINE_OSMOLALITY: 80,
-                    A.URINE_VOLUME_24H: 3.0})
+    ctx = make_ctx(
+        {A.SODIUM: 126, A.OSMOLALITY: 259, A.URINE_OSMOLALITY: 80, A.URINE_VOLUME_24H: 3.0}
+    )
     f = by_code(evaluate_workup(ctx, th))[C.DILUTE_URINE]
     assert any("240 mOsm/day" in d and "4.8 L/day" in d for d in f.details)

@@ -25,6 +25,7 @@ def mg_dl_to_mmol_l(mg_dl: float, g_per_mol: float) -> float:
 
 # --- Unit conversions, cross-checked with pint -------------------------------------------
 
+
 def test_glucose_divisor_matches_molar_mass(th: Thresholds) -> None:
     # Dorwart & Chalmers 1975 divide glucose (mg/dL) by 18: pint with 180.16 g/mol gives 18.016.
     per_mmol = 1 / mg_dl_to_mmol_l(1, GLUCOSE_G_PER_MOL)
@@ -48,8 +49,11 @@ def test_saline_sodium_from_percent_matches_pint() -> None:
 
 # --- Serum osmolality ---------------------------------------------------------------------
 
+
 def test_calculated_osmolality_normal_adult(th: Thresholds) -> None:
-    # Dorwart & Chalmers 1975 formula (from memory): Na 140, glucose 90, BUN 14
+    # Dorwart & Chalmers 1975, Clin Chem 21:190, Abstract: glucose/18 and BUN/2.8 (mg/dL) as
+    # read there (their best fit is 1.86 Na + 9; the 2 Na form is common practice): Na 140,
+    # glucose 90, BUN 14
     # -> 280 + 5 + 5 = 290 mOsm/kg, inside the 275-295 reference range (Spasovski 2014).
     osm = f.calculated_osmolality(140, 90, 14, th)
     assert osm == pytest.approx(290.0)
@@ -94,6 +98,7 @@ def test_osmolal_gap(th: Thresholds) -> None:
 
 # --- Glucose-corrected sodium -------------------------------------------------------------
 
+
 def test_katz_factor(th: Thresholds) -> None:
     # Katz 1973 (from memory): sodium falls 1.6 mmol/L per 100 mg/dL glucose above 100:
     # glucose 600 with sodium 120 -> corrected 128.
@@ -101,7 +106,8 @@ def test_katz_factor(th: Thresholds) -> None:
 
 
 def test_hillier_factor(th: Thresholds) -> None:
-    # Hillier 1999 (from memory): 2.4 mmol/L per 100 mg/dL: glucose 600, sodium 120 -> 132.
+    # Hillier, Abbott & Barrett 1999, Am J Med 106:399, Abstract (Results, Conclusion): sodium
+    # falls 2.4 meq/L per 100 mg/dL glucose: glucose 600, sodium 120 -> 132.
     assert f.corrected_sodium_hillier(120, 600, th) == pytest.approx(132.0)
 
 
@@ -125,6 +131,7 @@ def test_corrected_sodium_rises_with_glucose(na: float, g1: float, g2: float) ->
 
 
 # --- Body water and the Adrogué–Madias formula ---------------------------------------------
+
 
 @pytest.mark.parametrize(
     ("age", "female", "fraction"),
@@ -172,6 +179,7 @@ def test_body_water_needs_positive_weight() -> None:
 
 # --- Urine ----------------------------------------------------------------------------------
 
+
 @pytest.mark.parametrize(
     ("una", "uk", "sna", "advice"),
     [
@@ -213,6 +221,8 @@ def test_fractional_excretion() -> None:
     # Fractional excretion of sodium (common practice textbook example): UNa 40, SNa 140,
     # UCr 100 mg/dL, SCr 1 mg/dL -> 0.29 %.
     assert f.fractional_excretion(40, 140, 100, 1.0) == pytest.approx(0.2857, abs=1e-4)
-    # Fenske 2008: FE urate > 12 % supports SIADH; urate 40/3.0 with creatinine 60/0.8 -> 17.8 %.
+    # Fenske et al. 2008, J Clin Endocrinol Metab 93:2991, Abstract (Results): an FE urate
+    # cut-off of 12 % (PPV 100 % on diuretics) supports SIADH; urate 40/3.0 with creatinine
+    # 60/0.8 -> 17.8 %.
     fe_urate = f.fractional_excretion(40, 3.0, 60, 0.8)
     assert math.isclose(fe_urate, 17.78, abs_tol=0.01)

@@ -44,8 +44,13 @@ def test_hypertonic_saline_volume_spends_only_what_is_left(th: Thresholds) -> No
     # 1 L of 3 % saline raises sodium 17.2 mmol/L. Here sodium already rose from 104 to 108 in
     # the last 10 h; 104 <= 105 makes the 8 mmol/L high-risk limit apply (Verbalis 2013), and
     # 8 - 4 = 4 mmol/L is left: 4 / 17.2 = 0.23 L instead of 0.47 L.
-    ctx = make_ctx(age=78, sex=Sex.FEMALE, weight=50, fluids=[HTS],
-                   series={Analyte.SODIUM: sodium_series([(11, 104), (1, 108)])})
+    ctx = make_ctx(
+        age=78,
+        sex=Sex.FEMALE,
+        weight=50,
+        fluids=[HTS],
+        series={Analyte.SODIUM: sodium_series([(11, 104), (1, 108)])},
+    )
     f = _hts_card(ctx, th)
     v = {x.name: x.value for x in f.values}
     assert v[ValueName.DELTA_SODIUM_PER_LITER] == 17.2
@@ -55,8 +60,13 @@ def test_hypertonic_saline_volume_spends_only_what_is_left(th: Thresholds) -> No
 
 
 def test_a_used_up_limit_says_so_and_offers_no_volume(th: Thresholds) -> None:
-    ctx = make_ctx(age=60, sex=Sex.MALE, weight=70, fluids=[HTS],
-                   series={Analyte.SODIUM: sodium_series([(20, 112), (1, 124)])})
+    ctx = make_ctx(
+        age=60,
+        sex=Sex.MALE,
+        weight=70,
+        fluids=[HTS],
+        series={Analyte.SODIUM: sodium_series([(20, 112), (1, 124)])},
+    )
     f = _hts_card(ctx, th)
     assert "already used" in f.summary
     assert {x.name: x.value for x in f.values}[ValueName.MAX_VOLUME_24H] == 0
@@ -75,8 +85,9 @@ def test_volume_never_grows_as_more_of_the_limit_is_used(start: float, rise: flo
 
     def volume(already: float) -> float:
         series = sodium_series([(12, start), (1, start + already)])
-        ctx = make_ctx(age=50, sex=Sex.MALE, weight=70, fluids=[HTS],
-                       series={Analyte.SODIUM: series})
+        ctx = make_ctx(
+            age=50, sex=Sex.MALE, weight=70, fluids=[HTS], series={Analyte.SODIUM: series}
+        )
         v = {x.name: x.value for x in _hts_card(ctx, th).values}
         return float(v[ValueName.MAX_VOLUME_24H])
 

@@ -67,7 +67,10 @@ def test_unknown_without_a_prior_normal(th: Thresholds) -> None:
     ],
 )
 def test_pathway_table(
-    th: Thresholds, osm: float | None, glucose: float | None, expected: Tonicity,
+    th: Thresholds,
+    osm: float | None,
+    glucose: float | None,
+    expected: Tonicity,
     provisional: bool,
 ) -> None:
     call = classify(osm, glucose, th)

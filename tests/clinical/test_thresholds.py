@@ -73,9 +73,21 @@ def test_drug_classes_cover_the_issue_list() -> None:
     names = {n for c in drug_classes() for n in c.drugs}
     # Liamis 2008 (from memory): classes associated with hyponatremia.
     for drug in (
-        "hydrochlorothiazide", "sertraline", "venlafaxine", "amitriptyline", "carbamazepine",
-        "oxcarbazepine", "haloperidol", "desmopressin", "cyclophosphamide", "vincristine",
-        "cisplatin", "tramadol", "omeprazole", "ibuprofen", "mdma",
+        "hydrochlorothiazide",
+        "sertraline",
+        "venlafaxine",
+        "amitriptyline",
+        "carbamazepine",
+        "oxcarbazepine",
+        "haloperidol",
+        "desmopressin",
+        "cyclophosphamide",
+        "vincristine",
+        "cisplatin",
+        "tramadol",
+        "omeprazole",
+        "ibuprofen",
+        "mdma",
     ):
         assert drug in names, drug
     vaptans = [c for c in drug_classes() if c.role is DrugRole.VAPTAN]
@@ -88,8 +100,14 @@ def test_infusate_classes_match_their_sodium_plus_potassium() -> None:
     table = infusates()
     # Adrogué & Madias 2000 (from memory): 0.45 % saline and D5W are hypotonic, 0.9 % and
     # lactated Ringer's isotonic, 3 % hypertonic.
-    expected = {"nacl_0_45": "hypotonic", "d5w": "hypotonic", "d5_nacl_0_45": "hypotonic",
-                "nacl_0_9": "isotonic", "lactated_ringers": "isotonic", "nacl_3": "hypertonic"}
+    expected = {
+        "nacl_0_45": "hypotonic",
+        "d5w": "hypotonic",
+        "d5_nacl_0_45": "hypotonic",
+        "nacl_0_9": "isotonic",
+        "lactated_ringers": "isotonic",
+        "nacl_3": "hypertonic",
+    }
     for key, tonicity in expected.items():
         assert table[key].tonicity == tonicity
         assert fluid_tonicity(table[key].sodium + table[key].potassium, th) == tonicity
@@ -100,16 +118,36 @@ def test_malformed_entries_are_rejected_on_load() -> None:
     from cds_service.clinical.drugs import _load_class
     from cds_service.clinical.infusates import _load
 
-    good_class = {"label": "x", "role": "associated", "diuretic": False, "mechanism": "m",
-                  "source": "liamis2008", "from_memory": True, "rxnorm_from_memory": True,
-                  "drugs": {"sertraline": "36437"}}
+    good_class = {
+        "label": "x",
+        "role": "associated",
+        "diuretic": False,
+        "mechanism": "m",
+        "source": "liamis2008",
+        "from_memory": True,
+        "rxnorm_from_memory": True,
+        "drugs": {"sertraline": "36437"},
+    }
     assert _load_class("ok", good_class).drugs["sertraline"] == "36437"
-    for bad in ({"drugs": {"Sertraline": "36437"}}, {"drugs": {"x": "R123"}},
-                {"role": "cause"}, {"source": "nobody2020"}, {"diuretic": "no"}):
+    for bad in (
+        {"drugs": {"Sertraline": "36437"}},
+        {"drugs": {"x": "R123"}},
+        {"role": "cause"},
+        {"source": "nobody2020"},
+        {"diuretic": "no"},
+    ):
         with pytest.raises(DataFileError):
             _load_class("bad", {**good_class, **bad})
-    good_fluid = {"label": "x", "aliases": [], "sodium": 77, "potassium": 0, "osmolarity": 154,
-                  "tonicity": "hypotonic", "source": "common practice", "from_memory": True}
+    good_fluid = {
+        "label": "x",
+        "aliases": [],
+        "sodium": 77,
+        "potassium": 0,
+        "osmolarity": 154,
+        "tonicity": "hypotonic",
+        "source": "common practice",
+        "from_memory": True,
+    }
     assert _load("ok", good_fluid).sodium == 77
     for bad in ({"tonicity": "isotonic"}, {"sodium": -1}, {"osmolarity": "high"}):
         with pytest.raises(DataFileError):
@@ -117,10 +155,9 @@ def test_malformed_entries_are_rejected_on_load() -> None:
 
 
 def test_common_practice_citation_reads_plainly() -> None:
-    # A fact of the trade has no text to check; a recalled figure is said so in one phrase.
+    # A fact of the trade has no text to check against: it reads the same either way, and a
+    # card never says "from memory" (the knowledge report lists what is unchecked).
     from cds_service.clinical._data import cite
 
     assert cite("common practice") == "Common practice (no single published source)"
-    assert cite("common practice", from_memory=True) == (
-        "Common practice (no single published source; the figure is from memory)"
-    )
+    assert cite("common practice", from_memory=True) == cite("common practice")

@@ -24,7 +24,7 @@ def test_every_entry_has_long_name_analyte_specimen_and_source() -> None:
         assert len(entry.name) > 5, entry
         assert isinstance(entry.analyte, Analyte)
         assert entry.specimen
-        assert entry.source, f"{entry.code} has no source (write 'from memory' if unchecked)"
+        assert entry.source, f"{entry.code} has no source (say what is known if unchecked)"
 
 
 @pytest.mark.parametrize("entry", loinc.entries(), ids=lambda e: e.code)
@@ -81,3 +81,14 @@ def test_every_primary_entry_has_a_short_order_name() -> None:
             assert "[" not in entry.short and "/volume" not in entry.short, entry.short
     assert loinc.order_name(Analyte.URINE_SODIUM) == "urine sodium (spot)"
     assert loinc.order_name(Analyte.TSH) == "TSH"
+
+
+def test_mixed_venous_sodium_has_its_published_long_name() -> None:
+    # LOINC v2.70 display of 41657-8 "Sodium [Moles/volume] in Mixed venous blood", as listed
+    # in the FSH ValueSet "Sodium" of The-Ronin-Project/infx-fhir-profile OncologyTestData.fsh
+    # (an earlier version); capillary blood sodium is a different code (39792-7 in the same
+    # listing). The map had called 41657-8 capillary.
+    entry = loinc.lookup("41657-8")
+    assert entry is not None and entry.checked
+    assert entry.name == "Sodium [Moles/volume] in Mixed venous blood"
+    assert entry.specimen == "mixed venous blood" and entry.analyte is Analyte.SODIUM

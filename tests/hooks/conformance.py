@@ -62,3 +62,13 @@ def check_card(card: dict[str, Any]) -> None:
                 resource = action["resource"]
                 # fhir.resources (R4B models) validates the suggested resource
                 get_fhir_model_class(resource["resourceType"]).model_validate(resource)
+
+
+def post_cards(
+    client: Any, body: dict[str, Any], path: str = "/cds-services/sodium-workup"
+) -> list:
+    """POST a hook call that must succeed; the cards of its conformant response."""
+    response = client.post(path, json=body)
+    assert response.status_code == 200, response.text[:300]
+    check_response(response.json())
+    return response.json()["cards"]

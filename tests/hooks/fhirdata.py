@@ -13,6 +13,11 @@ from typing import Any
 NOW = datetime.now(UTC).replace(microsecond=0)
 PATIENT_ID = "lvh-pt-1042"
 FHIR_BASE = "https://fhir.larkspur-valley.example.org/r4"
+#: SMART App Launch 1.0.0 scopes (v1 form) for every read the services make.
+SCOPE = " ".join(
+    f"user/{t}.read"
+    for t in ("Patient", "Observation", "MedicationRequest", "MedicationStatement", "Condition")
+)
 
 # LOINC codes (LOINC, open standard; codes from memory, checked against our fhir/data map)
 NA = ("2951-2", "Sodium [Moles/volume] in Serum or Plasma", "mmol/L")
@@ -122,13 +127,21 @@ def hypotonic_fluid(mid: str = "draft-half-saline", pid: str = PATIENT_ID) -> di
 def prefetch(
     observations: list[dict], *, pat: dict | None = None, others: bool = True
 ) -> dict[str, Any]:
+    from cds_service.fhir.loinc import lookup
+    from cds_service.hooks.registry import LAB_GROUPS
+
     sodium = [o for o in observations if o["code"]["coding"][0]["code"] == NA[0]]
-    labs = [o for o in observations if o["code"]["coding"][0]["code"] != NA[0]]
     data: dict[str, Any] = {
         "patient": pat or patient(),
         "sodium": searchset(sodium) if sodium else None,
-        "labs": searchset(labs) if labs else None,
     }
+    for key, group in LAB_GROUPS.items():  # each result under its query's key, as a client does
+        found = [
+            o
+            for o in observations
+            if (e := lookup(o["code"]["coding"][0]["code"])) and e.analyte in group.analytes
+        ]
+        data[key] = searchset(found) if found else None
     if others:
         data.update(medicationRequests=None, medicationStatements=None, conditions=None)
     return data
@@ -169,7 +182,7 @@ def hook_request(
             "access_token": token,
             "token_type": "Bearer",
             "expires_in": 300,
-            "scope": "user/Patient.read user/Observation.read",
+            "scope": SCOPE,
             "subject": "tonicity-cds",
         }
     return body

@@ -150,8 +150,14 @@ def test_input_age_is_relative_to_now() -> None:
     assert "Serum sodium: 128 mmol/L, taken 2026-03-14 04:00 UTC (5 h ago)" in detail
 
 
-_ORDERABLE = ["osmolality", "urine_osmolality", "urine_sodium", "urine_potassium", "tsh",
-              "cortisol"]
+_ORDERABLE = [
+    "osmolality",
+    "urine_osmolality",
+    "urine_sodium",
+    "urine_potassium",
+    "tsh",
+    "cortisol",
+]
 
 
 @given(
@@ -177,7 +183,11 @@ def test_each_missing_test_is_offered_once_per_response(missing: list[list[str]]
 def test_the_most_specific_card_offers_a_shared_test() -> None:
     # The endocrine screen (TSH, cortisol) is more specific to TSH than the SIADH card that
     # also misses urine potassium: the buttons go to the endocrine card.
-    siadh = Finding(FindingCode.SIADH_PATTERN, Urgency.INFO, "siadh",
-                    missing=("tsh", "cortisol", "urine_potassium"))
+    siadh = Finding(
+        FindingCode.SIADH_PATTERN,
+        Urgency.INFO,
+        "siadh",
+        missing=("tsh", "cortisol", "urine_potassium"),
+    )
     endo = Finding(FindingCode.ENDOCRINE_SCREEN, Urgency.INFO, "endo", missing=("tsh", "cortisol"))
     assert suggested_tests([siadh, endo]) == [("urine_potassium",), ("tsh", "cortisol")]

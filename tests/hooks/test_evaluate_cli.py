@@ -19,6 +19,7 @@ from hypothesis import strategies as st
 
 from cds_service.cli import main
 from cds_service.hooks.client import build_request, run_query
+from cds_service.hooks.registry import LAB_GROUPS
 from tests.hooks.conformance import check_response
 from tests.hooks.fhirdata import (
     NA,
@@ -161,7 +162,7 @@ def test_prefetch_of_a_bundle_fills_every_template_key() -> None:
     assert set(request["prefetch"]) == {
         "patient",
         "sodium",
-        "labs",
+        *LAB_GROUPS,
         "medicationRequests",
         "medicationStatements",
         "conditions",

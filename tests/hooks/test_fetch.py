@@ -17,7 +17,7 @@ import respx
 
 from cds_service.hooks.fetch import fetch_all
 from cds_service.hooks.prefetch import check_prefetch
-from cds_service.hooks.registry import prefetch_templates
+from cds_service.hooks.registry import LAB_GROUPS, prefetch_templates
 from cds_service.hooks.service import HookError, gather_data, parse_call
 from tests.hooks.fhirdata import (
     FHIR_BASE,
@@ -141,6 +141,7 @@ def test_prefetch_null_operation_outcome_and_missing_are_told_apart() -> None:
     assert "lab system busy" in state.unavailable["sodium"]
     assert set(state.to_fetch) == {
         "sodium",
+        *(set(LAB_GROUPS) - {"labs"}),
         "medicationRequests",
         "medicationStatements",
         "conditions",
@@ -178,12 +179,12 @@ def test_missing_keys_are_fetched_with_filled_templates(settings) -> None:  # ty
         respx.get(f"{FHIR_BASE}/{rtype}").respond(200, json=searchset([]))
     state = _gather(body, settings)
     assert not state.unavailable
-    assert obs_route.call_count == 2  # sodium and other labs, concurrently
+    assert obs_route.call_count == 1 + len(LAB_GROUPS)  # sodium and each lab group, at once
     codes = [c.request.url.params["code"] for c in obs_route.calls]
     assert any(f"http://loinc.org|{NA[0]}" in c for c in codes)
     assert any(f"http://loinc.org|{OSM[0]}" in c for c in codes)
     for call in obs_route.calls:
-        assert call.request.url.params["patient"] == "lvh-pt-1042"
+        assert call.request.url.params["patient"] == "Patient/lvh-pt-1042"
 
 
 @respx.mock

@@ -151,7 +151,9 @@ def test_patient_view_request_carries_the_bundle_record(rel: str) -> None:
     pre = request["prefetch"]
     assert pre["patient"] == resources[0]
     assert request["context"]["patientId"] == resources[0]["id"]
-    sent = [e["resource"] for k in ("sodium", "labs") for e in pre[k]["entry"]]
+    from cds_service.hooks.registry import LAB_GROUPS
+
+    sent = [e["resource"] for k in ("sodium", *LAB_GROUPS) for e in pre[k]["entry"]]
     assert sorted(o["id"] for o in sent) == sorted(
         r["id"] for r in resources if r["resourceType"] == "Observation"
     )

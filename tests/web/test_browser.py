@@ -122,10 +122,30 @@ def test_workbench_runs_a_sample_and_shows_its_cards(base_url: str, driver) -> N
         badge = card.find_element(By.CSS_SELECTOR, ".indicator-badge").text
         assert badge.lower() in ("info", "warning", "critical")
         assert card.find_element(By.CSS_SELECTOR, "h3").text
-    assert "HTTP 200" in driver.find_element(By.ID, "timing").text
+    # The record as Tonicity read it: one row per result, used or ignored, with a lane picture.
+    rows = wait.until(
+        lambda d: d.find_elements(By.CSS_SELECTOR, "#record table.record-table tbody tr") or False
+    )
+    assert any("used" in r.text.lower() for r in rows)
+    assert driver.find_elements(By.CSS_SELECTOR, "#record .timeline .chip.used")
+    assert "Patient:" in driver.find_element(By.ID, "patient-facts").text
+    # Details collapse under their summary; opening a card marks the results it rests on.
+    first = cards[0].find_element(By.CSS_SELECTOR, "details.card-body")
+    assert first.get_attribute("open") is None
+    first.find_element(By.CSS_SELECTOR, "summary").click()
+    wait.until(lambda d: first.get_attribute("open") is not None)
+    marked = driver.find_elements(By.CSS_SELECTOR, "#record .rests-on")
+    assert marked, "opening a card marks its results in the record"
+    driver.save_screenshot(str(ARTIFACTS / "workbench-card-open.png"))
+    # The raw exchange is behind a toggle for integrators, and complete.
+    exchange = driver.find_element(By.ID, "exchange")
+    assert exchange.get_attribute("open") is None
+    assert "HTTP 200" in driver.find_element(By.ID, "timing").get_attribute("textContent")
     assert '"cards"' in driver.find_element(By.ID, "response-json").get_attribute("textContent")
+    # Errors show at the top of the record panel, where the eye is.
+    assert driver.find_element(By.ID, "problem").get_attribute("hidden") is not None
     # Follow the trend link the correction-rate card carries.
-    link = driver.find_element(By.CSS_SELECTOR, "#cards .card-links a")
+    link = driver.find_element(By.CSS_SELECTOR, "#cards .card-links a")  # present while closed
     driver.get(link.get_attribute("href"))
     points = driver.find_elements(By.CSS_SELECTOR, 'svg.trend-chart g[id^="sodium-point-"]')
     assert points

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 import re
+from datetime import UTC, datetime, timedelta
 from pathlib import Path
 
 import pytest
@@ -156,3 +157,81 @@ def test_unknown_hook_for_a_bundle_is_a_400(client: TestClient, tmp_path: Path) 
     r = client.post("/workbench/request?hook=chart-open", json=bundle)
     assert r.status_code == 400
     assert "unknown hook" in r.json()["issue"][0]["diagnostics"]
+
+
+def _low_sodium_request(now: datetime) -> dict:
+    """An invented patient-view request: Na 126 mmol/L now, one sodium without a value (set
+    aside, with its reason), no osmolality: a tonicity-unknown card resting on the sodium."""
+    t = (now - timedelta(hours=1)).isoformat()
+
+    def obs(oid: str, value: dict) -> dict:
+        return {
+            "resourceType": "Observation",
+            "id": oid,
+            "status": "final",
+            "subject": {"reference": "Patient/lvh-pt-0077"},
+            "effectiveDateTime": t,
+            "code": {"coding": [{"system": "http://loinc.org", "code": "2951-2"}]},
+            **value,
+        }
+
+    return {
+        "hook": "patient-view",
+        "hookInstance": "6a1f7d0e-0c3b-4d8e-9a55-2f3d5c1b7e90",
+        "context": {"userId": "Practitioner/lv-dr-1", "patientId": "lvh-pt-0077"},
+        "prefetch": {
+            "patient": {
+                "resourceType": "Patient",
+                "id": "lvh-pt-0077",
+                "birthDate": "1950-01-01",
+                "gender": "female",
+            },
+            "sodium": {
+                "resourceType": "Bundle",
+                "type": "searchset",
+                "entry": [
+                    {
+                        "resource": obs(
+                            "lv-na-used",
+                            {
+                                "valueQuantity": {
+                                    "value": 126,
+                                    "unit": "mmol/L",
+                                    "system": "http://unitsofmeasure.org",
+                                    "code": "mmol/L",
+                                }
+                            },
+                        )
+                    },
+                    {"resource": obs("lv-na-empty", {"dataAbsentReason": {"text": "haemolysed"}})},
+                ],
+            },
+        },
+    }
+
+
+def test_understand_shows_used_and_ignored_results_and_what_each_card_rests_on(
+    client: TestClient,
+) -> None:
+    body = _low_sodium_request(datetime.now(UTC))
+    r = client.post("/workbench/understand", json=body)
+    assert r.status_code == 200
+    data = r.json()
+    rows = {row["resource"]: row for row in data["results"]}
+    assert rows["Observation/lv-na-used"]["used"] and rows["Observation/lv-na-used"]["value"] == 126
+    ignored = rows["Observation/lv-na-empty"]
+    assert not ignored["used"] and ignored["reason"]  # set aside, and says why
+    assert data["patient"] == {
+        "age_years": data["patient"]["age_years"],
+        "sex": "female",
+        "known": True,
+    }
+    # DESIGN.md: Na < 135 without a measured osmolality -> hyponatremia-tonicity-unknown,
+    # and that card rests on the sodium that was used.
+    assert "Observation/lv-na-used" in data["findings"]["hyponatremia-tonicity-unknown"]
+
+
+def test_understand_refuses_a_bad_request_with_an_operation_outcome(client: TestClient) -> None:
+    r = client.post("/workbench/understand", json={"hook": "no-such-hook"})
+    assert 400 <= r.status_code < 500
+    assert r.json()["resourceType"] == "OperationOutcome"

@@ -97,40 +97,63 @@
       $("request-body").value = JSON.stringify(req, null, 2);
       $("service").value = "";
       await send();
-      $("cards-title").scrollIntoView({ block: "nearest", behavior: "smooth" });
+      $("patient-title").scrollIntoView({ block: "nearest", behavior: "smooth" });
     } catch (e) {
-      setStatus(String(e.message || e), true);
+      showProblem(String(e.message || e));
     } finally {
       btn.disabled = false;
     }
   }
 
+  // Errors appear at the top of the record panel, where the eye is, and are announced once.
+  function showProblem(text) {
+    const box = $("problem");
+    box.textContent = text;
+    box.hidden = false;
+    setStatus("");
+  }
+
+  function clearProblem() {
+    $("problem").hidden = true;
+    $("problem").textContent = "";
+  }
+
+  function issues(body, fallback) {
+    return body && body.issue ? body.issue.map((i) => i.diagnostics).join("; ") : String(fallback);
+  }
+
+  async function postJson(url, body) {
+    const r = await fetch(url, {
+      method: "POST", headers: { "Content-Type": "application/json" }, body: JSON.stringify(body),
+    });
+    const parsed = await r.json().catch(() => null);
+    return { ok: r.ok, status: r.status, body: parsed };
+  }
+
   async function send() {
+    clearProblem();
     let body;
     try {
       body = JSON.parse($("request-body").value);
     } catch (e) {
-      setStatus(`The request is not valid JSON: ${e.message}`, true);
+      $("own-record").open = true;
+      showProblem(`The request is not valid JSON: ${e.message}`);
       return;
     }
     if (body && body.resourceType === "Bundle" && !body.hook) {
       const hook = SERVICE_HOOK[$("service").value] || "patient-view";
       setStatus(`Building a ${hook} request from the Bundle…`);
-      const r = await fetch(`/workbench/request?hook=${encodeURIComponent(hook)}`, {
-        method: "POST", headers: { "Content-Type": "application/json" }, body: JSON.stringify(body),
-      });
-      const built = await r.json().catch(() => null);
-      if (!r.ok || !built) {
-        const why = built && built.issue ? built.issue.map((i) => i.diagnostics).join("; ") : r.status;
-        setStatus(`The Bundle could not become a request: ${why}`, true);
+      const built = await postJson(`/workbench/request?hook=${encodeURIComponent(hook)}`, body);
+      if (!built.ok || !built.body) {
+        showProblem(`The Bundle could not become a request: ${issues(built.body, built.status)}`);
         return;
       }
-      body = built;
+      body = built.body;
       $("request-body").value = JSON.stringify(body, null, 2);
     }
     const service = $("service").value || HOOK_SERVICE[body && body.hook];
     if (!service) {
-      setStatus("Choose a service: the request has no hook this service knows.", true);
+      showProblem("Choose a service: the request has no hook this service knows.");
       return;
     }
     const headers = { "Content-Type": "application/json", Accept: "application/json" };
@@ -138,7 +161,7 @@
     if (token) headers.Authorization = `Bearer ${token}`;
     const sent = JSON.stringify(body, null, 2);
     $("request-json").textContent = sent;
-    setStatus(`Sending to ${service}…`);
+    setStatus(`Evaluating with ${service}…`);
     $("send").disabled = true;
     const t0 = performance.now();
     let response, text;
@@ -148,7 +171,7 @@
       });
       text = await response.text();
     } catch (e) {
-      setStatus(`The service could not be reached: ${e.message}`, true);
+      showProblem(`The service could not be reached: ${e.message}`);
       return;
     } finally {
       $("send").disabled = false;
@@ -159,64 +182,198 @@
     let parsed = null;
     try { parsed = JSON.parse(text); } catch (e) { /* shown as text */ }
     $("response-json").textContent = parsed ? JSON.stringify(parsed, null, 2) : text;
+    const understood = await postJson("/workbench/understand", body);
+    if (understood.ok && understood.body) showRecord(understood.body);
+    else showRecord(null, issues(understood.body, understood.status));
     if (!response.ok) {
-      const why = parsed && parsed.issue ? parsed.issue.map((i) => i.diagnostics).join("; ") : "";
-      setStatus(`The service answered ${response.status}. ${why}`, true);
-      $("cards").replaceChildren(el("p", { class: "status error", role: "alert",
-        text: `No cards: the call failed with HTTP ${response.status}. ${why}` }));
+      showProblem(`The service answered HTTP ${response.status}: ${issues(parsed, text)}`);
+      $("cards").replaceChildren(el("p", { class: "muted",
+        text: `No cards: the call failed with HTTP ${response.status}.` }));
       return;
     }
     const cards = (parsed && parsed.cards) || [];
     setStatus(`${cards.length} card${cards.length === 1 ? "" : "s"} in ${ms.toFixed(0)} ms.`);
-    await showCards(cards);
+    await showCards(cards, understood.ok ? understood.body : null);
   }
+
+  // ---- the record ----------------------------------------------------------------------
+
+  const LOCAL = new Intl.DateTimeFormat(undefined, {
+    day: "2-digit", month: "short", hour: "2-digit", minute: "2-digit",
+  });
+  const fmtTime = (iso) => (iso ? LOCAL.format(new Date(iso)) : "");
+  const fmtValue = (r) => {
+    if (r.value === null || r.value === undefined) return r.raw || "";
+    const v = Math.round(r.value * 100) / 100;
+    return `${v} ${UNIT_TEXT[r.unit] ?? r.unit ?? ""}`.trim();
+  };
+  const UNIT_TEXT = { "mosm/kg": "mOsm/kg", "m[IU]/L": "mIU/L", "ug/dL": "µg/dL", "1": "" };
+
+  function patientLine(data) {
+    const p = data.patient;
+    if (!p.known) return "Patient: age and sex could not be checked (no readable Patient resource).";
+    const sex = p.sex === "unknown" ? "sex not recorded" : p.sex;
+    const age = p.age_years === null ? "age not recorded" : `${p.age_years} years`;
+    return `Patient: ${age}, ${sex} · evaluated ${fmtTime(data.now)} (${data.hook})`;
+  }
+
+  function showRecord(data, why) {
+    const box = $("record");
+    if (!data) {
+      $("patient-facts").textContent = "";
+      box.replaceChildren(el("p", { class: "muted",
+        text: `The record could not be read${why ? ": " + why : ""}.` }));
+      return;
+    }
+    $("patient-facts").textContent = patientLine(data);
+    const labs = data.results.filter((r) => r.analyte);
+    const other = data.results.filter((r) => !r.analyte && !r.resource.startsWith("Patient/"));
+    const used = data.results.filter((r) => r.used).length;
+    const summary = el("p", { class: "record-count",
+      text: `${used} used, ${data.results.length - used} ignored.` });
+    box.replaceChildren(summary, timeline(labs, data.now), labTable(labs));
+    if (other.length) box.append(otherTable(other));
+    const gaps = Object.entries(data.unavailable || {});
+    if (gaps.length) {
+      box.append(el("p", { class: "hint", text: "Not in the request: " +
+        gaps.map(([k, v]) => `${k} (${v})`).join("; ") }));
+    }
+  }
+
+  // One lane per test, results placed by time: a quick picture of what was drawn when.
+  function timeline(labs, nowIso) {
+    const timed = labs.filter((r) => r.time);
+    const wrap = el("figure", { class: "timeline" });
+    if (!timed.length) return wrap;
+    const times = timed.map((r) => Date.parse(r.time));
+    const now = Date.parse(nowIso);
+    const lo = Math.min(...times);
+    const hi = Math.max(now, ...times);
+    const span = Math.max(hi - lo, 3600e3);
+    const lanes = new Map();
+    for (const r of timed) {
+      if (!lanes.has(r.label)) lanes.set(r.label, []);
+      lanes.get(r.label).push(r);
+    }
+    for (const [label, items] of lanes) {
+      const track = el("div", { class: "lane-track" });
+      for (const r of items) {
+        const left = ((Date.parse(r.time) - lo) / span) * 96 + 2;
+        const chip = el("span", {
+          class: `chip ${r.used ? "used" : "ignored"}`,
+          "data-source": r.resource,
+          style: `left:${left.toFixed(2)}%`,
+          title: `${label} ${fmtValue(r)} at ${fmtTime(r.time)}: ` +
+            (r.used ? "used" : `ignored (${r.reason})`) + (r.used && r.reason ? ` (${r.reason})` : ""),
+          text: r.value === null || r.value === undefined ? "–" : String(Math.round(r.value * 10) / 10),
+        });
+        track.append(chip);
+      }
+      wrap.append(el("div", { class: "lane" }, el("span", { class: "lane-label", text: label }), track));
+    }
+    wrap.append(el("figcaption", { class: "hint",
+      text: `From ${fmtTime(new Date(lo).toISOString())} to ${fmtTime(new Date(hi).toISOString())}` +
+        " (your browser's time zone). Solid: used; dashed: ignored. The table below says why." }));
+    return wrap;
+  }
+
+  function labTable(labs) {
+    const rows = [...labs].sort((a, b) => (a.time || "").localeCompare(b.time || ""));
+    const tbody = el("tbody");
+    for (const r of rows) {
+      tbody.append(el("tr", { class: r.used ? "used" : "ignored", "data-source": r.resource },
+        el("td", { text: fmtTime(r.time), title: r.time || "" }),
+        el("td", { text: r.label }),
+        el("td", { class: "num", text: fmtValue(r), title: r.raw ? `sent as ${r.raw}` : "" }),
+        el("td", {}, el("span", { class: `use-badge ${r.used ? "used" : "ignored"}`,
+          text: r.used ? "used" : "ignored" })),
+        el("td", { text: r.reason || "" }),
+      ));
+    }
+    return el("table", { class: "record-table" },
+      el("caption", { text: "Results, oldest first" }),
+      el("thead", {}, el("tr", {}, ...["Time", "Test", "Value", "Used", "Why / note"].map(
+        (h) => el("th", { scope: "col", text: h })))),
+      tbody);
+  }
+
+  function otherTable(other) {
+    const tbody = el("tbody");
+    for (const r of other) {
+      tbody.append(el("tr", { class: r.used ? "used" : "ignored", "data-source": r.resource },
+        el("td", { text: r.understood_as }),
+        el("td", {}, el("span", { class: `use-badge ${r.used ? "used" : "ignored"}`,
+          text: r.used ? "used" : "ignored" })),
+        el("td", { text: r.reason || "" }),
+      ));
+    }
+    return el("table", { class: "record-table" },
+      el("caption", { text: "Medications, problems and orders" }),
+      el("thead", {}, el("tr", {}, ...["Understood as", "Used", "Why / note"].map(
+        (h) => el("th", { scope: "col", text: h })))),
+      tbody);
+  }
+
+  // ---- the cards -----------------------------------------------------------------------
 
   async function renderDetails(cards) {
     const texts = cards.map((c) => c.detail || "");
     if (!texts.some((t) => t)) return texts;
     try {
-      const r = await fetch("/workbench/render", {
-        method: "POST",
-        headers: { "Content-Type": "application/json" },
-        body: JSON.stringify({ texts }),
-      });
-      if (r.ok) return (await r.json()).html;
+      const r = await postJson("/workbench/render", { texts });
+      if (r.ok && r.body) return r.body.html;
     } catch (e) { /* fall back to text */ }
     return null;
   }
 
-  async function showCards(cards) {
+  async function showCards(cards, understood) {
     const box = $("cards");
     if (!cards.length) {
-      box.replaceChildren(el("p", { class: "muted", text: "No cards: nothing to say for this request." }));
+      const reason = understood && understood.reason ? ` ${understood.reason}` : "";
+      box.replaceChildren(el("p", { class: "muted",
+        text: `No cards: nothing to say for this request.${reason}` }));
       return;
     }
     const html = await renderDetails(cards);
-    box.replaceChildren(...cards.map((c, i) => cardNode(c, html ? html[i] : null)));
+    const restsOn = (understood && understood.findings) || {};
+    box.replaceChildren(...cards.map((c, i) => cardNode(c, html ? html[i] : null, restsOn)));
   }
 
-  function cardNode(card, detailHtml) {
+  function mark(sources) {
+    for (const n of document.querySelectorAll("#record [data-source]")) {
+      n.classList.toggle("rests-on", sources.has(n.getAttribute("data-source")));
+    }
+  }
+
+  function cardNode(card, detailHtml, restsOn) {
     const ind = ["critical", "warning", "info"].includes(card.indicator) ? card.indicator : "info";
     const topic = card.source && card.source.topic ? card.source.topic.code : "";
-    const node = el(
-      "article",
-      { class: `card ${ind}`, "data-topic": topic },
-      el(
-        "div",
-        { class: "card-head" },
+    const sources = new Set(restsOn[topic] || []);
+    const details = el("details", { class: "card-body" },
+      el("summary", {},
         el("span", { class: "indicator-badge", text: INDICATOR_TEXT[ind] }),
-        el("span", {
-          class: "card-source",
-          text: `${(card.source && card.source.label) || ""}${topic ? " · " + topic : ""}`,
-        }),
+        el("h3", { text: card.summary || "" }),
       ),
-      el("h3", { text: card.summary || "" }),
     );
+    const node = el("article", { class: `card ${ind}`, "data-topic": topic }, details);
+    details.append(el("p", { class: "card-source",
+      text: `${(card.source && card.source.label) || ""}${topic ? " · " + topic : ""}` +
+        (sources.size ? ` · rests on ${sources.size} result${sources.size === 1 ? "" : "s"}` : "") }));
+    details.addEventListener("toggle", () => {
+      if (details.open) {
+        for (const other of document.querySelectorAll("#cards details.card-body")) {
+          if (other !== details) other.open = false;
+        }
+        mark(sources);
+      } else if (!document.querySelector("#cards details.card-body[open]")) {
+        mark(new Set());
+      }
+    });
     if (card.detail) {
       const d = el("div", { class: "card-detail" });
       if (detailHtml !== null && detailHtml !== undefined) d.innerHTML = detailHtml;
       else d.append(el("pre", { text: card.detail }));
-      node.append(d);
+      details.append(d);
     }
     if (card.suggestions && card.suggestions.length) {
       const result = el("pre", { class: "suggestion-result", hidden: "" });
@@ -235,7 +392,7 @@
         });
         row.append(b);
       }
-      node.append(row, result);
+      details.append(row, result);
     }
     if (card.links && card.links.length) {
       const row = el("div", { class: "card-links" });
@@ -248,7 +405,7 @@
             text: `${l.label || l.url} (SMART app link: not launched from the workbench)` }));
         }
       }
-      node.append(row);
+      details.append(row);
     }
     return node;
   }
@@ -261,13 +418,17 @@
       $("response-json").textContent = "";
       $("timing").textContent = "";
       setStatus("");
-      showCards([]);
+      clearProblem();
+      $("patient-facts").textContent = "";
+      $("record").replaceChildren(el("p", { class: "muted",
+        text: "Open a patient, or evaluate a request of your own." }));
+      showCards([], null);
     });
     $("upload").addEventListener("change", async (ev) => {
       const f = ev.target.files && ev.target.files[0];
       if (!f) return;
       $("request-body").value = await f.text();
-      setStatus(`Loaded ${f.name}. Press “Send to the service”.`);
+      setStatus(`Loaded ${f.name}. Press “Evaluate”.`);
     });
     loadSamples();
   }
