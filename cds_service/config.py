@@ -11,7 +11,7 @@ import re
 import tomllib
 from datetime import UTC, tzinfo
 from pathlib import Path
-from typing import Any
+from typing import Any, Literal
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 from pydantic import (
@@ -58,6 +58,7 @@ class ServerSettings(_Section):
     @property
     def tz(self) -> tzinfo:
         return UTC if self.time_zone == "UTC" else ZoneInfo(self.time_zone)
+
     #: Threads that parse, ingest and evaluate hook calls off the event loop.
     evaluation_threads: int = Field(4, ge=2, le=64)
     #: A hook call whose body is larger counts as large (see max_large_calls).
@@ -178,6 +179,14 @@ class IngestSettings(_Section):
     pairing_hours: float = Field(2.0, gt=0)  # glucose/urea paired with the sodium draw
 
 
+class DisplaySettings(_Section):
+    """What clinicians read: ``units`` "conventional" (mg/dL, µg/dL ...) or "si" (mmol/L,
+    µmol/L, nmol/L ...) for lab numbers in card text; machine values stay in UCUM canonical
+    units either way."""
+
+    units: Literal["conventional", "si"] = "conventional"
+
+
 class Settings(BaseSettings):
     model_config = SettingsConfigDict(
         env_prefix="TONICITY_", env_nested_delimiter="__", extra="forbid"
@@ -189,6 +198,7 @@ class Settings(BaseSettings):
     fhir: FhirSettings = Field(default_factory=FhirSettings)
     logging: LoggingSettings = Field(default_factory=LoggingSettings)
     ingest: IngestSettings = Field(default_factory=IngestSettings)
+    display: DisplaySettings = Field(default_factory=DisplaySettings)
     #: Overrides of clinical thresholds by key (see clinical/data/thresholds.toml).
     clinical: dict[str, float] = Field(default_factory=dict)
     #: True when started without a config file: a local trial (auth off, loopback only).

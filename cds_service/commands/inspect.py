@@ -87,11 +87,13 @@ def run(args: argparse.Namespace) -> int:
     from cds_service.fhir import build_context
 
     resources, drafts, pid, selections = split_input(read_json_file(args.bundle))
-    settings = load_settings(args.config).ingest if args.config else IngestSettings()
+    loaded = load_settings(args.config) if args.config else None
+    settings = loaded.ingest if loaded else IngestSettings()
     result = build_context(
         resources,
         now=parse_now(args.now),
         settings=settings,
+        display_units=loaded.display.units if loaded else "conventional",
         patient_id=args.patient or pid,
         draft_orders=drafts,
         selections=selections,

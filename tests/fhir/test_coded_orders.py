@@ -20,11 +20,14 @@ from typing import Any
 
 import pytest
 
+from cds_service.clinical.context import Analyte, DisplayUnits
 from cds_service.clinical.engine import evaluate_orders
 from cds_service.clinical.findings import FindingCode
 from cds_service.clinical.thresholds import load_thresholds
+from cds_service.config import IngestSettings
+from cds_service.fhir import build_context
 from cds_service.fhir.fluids import parse_text, strengths
-from tests.fhir.factory import PATIENT_ID, ingest, observation, patient
+from tests.fhir.factory import NOW, PATIENT_ID, ingest, observation, patient
 
 RXNORM = "http://www.nlm.nih.gov/research/umls/rxnorm"
 ATC = "http://www.whocc.no/atc"
@@ -303,3 +306,13 @@ def test_drug_in_unknown_code_system_gets_its_card() -> None:
 )
 def test_identified_orders_are_not_called_unidentified(draft: dict[str, Any]) -> None:
     assert ingest(drafts=(draft,)).context.draft_unidentified == ()
+
+
+def test_display_units_reach_the_context_and_values_stay_canonical() -> None:
+    # the institution's display.units sets ctx.display_units; the lab values do not change
+    record = [patient(), observation("cr", "2160-0", 1.2, "mg/dL")]
+    ctx = build_context(
+        record, now=NOW, settings=IngestSettings(), patient_id=PATIENT_ID, display_units="si"
+    ).context
+    assert ctx.display_units is DisplayUnits.SI
+    assert ctx.current[Analyte.CREATININE].value == 1.2
