@@ -30,9 +30,9 @@ def unidentified_findings(ctx: ClinicalContext, th: Thresholds) -> list[Finding]
     fluid = any(d.kind == "fluid" for d in drafts)
     what = "IV fluid" if first.kind == "fluid" else "drug"
     na = qty(sodium.value, Analyte.SODIUM, ctx.display_units)
+    check = "check what it contains" if first.kind == "fluid" else "check whether it lowers sodium"
     summary = shorten(
-        f"Drafted {what} not identified: '{shorten(first.display, 50)}' (sodium {na}); "
-        "check what it contains",
+        f"Drafted {what} not identified: '{shorten(first.display, 50)}' (sodium {na}); {check}",
         139,
     )
     steps = []
