@@ -78,6 +78,13 @@ class ConditionCategory(StrEnum):
     ADRENAL_INSUFFICIENCY = "adrenal_insufficiency"
     SIADH = "siadh"
     VOMITING_DIARRHEA = "vomiting_diarrhea"
+    # Triggers of SIADH the work-up names when the record shows them (Spasovski 2014).
+    MALIGNANCY = "malignancy"
+    CNS_DISORDER = "cns_disorder"
+    PULMONARY_DISEASE = "pulmonary_disease"
+    NAUSEA = "nausea"
+    PAIN = "pain"
+    POSTOPERATIVE = "postoperative"
 
 
 class DisplayUnits(StrEnum):

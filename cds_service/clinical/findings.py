@@ -43,7 +43,7 @@ FINDING_DISPLAY: dict[FindingCode, str] = {
     FindingCode.ISOTONIC: "Isotonic hyponatremia",
     FindingCode.HYPERTONIC: "Hypertonic hyponatremia",
     FindingCode.OSMOLAL_GAP: "Elevated osmolal gap",
-    FindingCode.DILUTE_URINE: "Maximally dilute urine",
+    FindingCode.DILUTE_URINE: "Dilute urine (urine osmolality at most 100 mOsm/kg)",
     FindingCode.LOW_URINE_SODIUM: "Low urine sodium",
     FindingCode.SIADH_PATTERN: "SIADH pattern",
     FindingCode.DRUG_ASSOCIATED: "Medications associated with hyponatremia",

@@ -64,7 +64,7 @@ class Thresholds:
     waugh_intercept: float
     waugh_lipid_factor: float
     waugh_protein_factor: float
-    urine_osmolality_dilute_below: float
+    urine_osmolality_dilute_at_most: float
     urine_sodium_low_at_most: float
     urine_osmolality_minimal: float
     solute_load_typical: float
@@ -96,6 +96,21 @@ class Thresholds:
     bolus_target_rise: float
     infusate_hypotonic_below: float
     infusate_hypertonic_above: float
+    # Added with the clinical pathway revision (classification).
+    ethanol_mg_dl_per_mmol_l: float
+    siadh_fe_sodium_above: float
+    free_t4_lower_normal: float
+    cortisol_morning_from_hour: float
+    cortisol_morning_until_hour: float
+    renal_insufficiency_egfr_below: float
+    ckd_epi_2021_constant: float
+    ckd_epi_2021_kappa_female: float
+    ckd_epi_2021_kappa_male: float
+    ckd_epi_2021_alpha_female: float
+    ckd_epi_2021_alpha_male: float
+    ckd_epi_2021_upper_exponent: float
+    ckd_epi_2021_age_base: float
+    ckd_epi_2021_female_factor: float
 
     def __post_init__(self) -> None:
         for f in fields(self):
@@ -113,6 +128,9 @@ class Thresholds:
         _ordered(self, "furst_ratio_low", "furst_ratio_high")
         _ordered(self, "infusate_hypotonic_below", "infusate_hypertonic_above")
         _ordered(self, "solute_load_low", "solute_load_typical")
+        _ordered(self, "cortisol_morning_from_hour", "cortisol_morning_until_hour")
+        if self.cortisol_morning_until_hour > 24:
+            raise ValueError("threshold cortisol_morning_until_hour must be at most 24")
         for name in (
             "tbw_fraction_adult_male",
             "tbw_fraction_adult_female",
@@ -126,6 +144,11 @@ class Thresholds:
             "urea_nitrogen_mg_dl_per_mmol_l",
             "urine_osmolality_minimal",
             "correction_limit_24h_high_risk",
+            "ethanol_mg_dl_per_mmol_l",
+            "ckd_epi_2021_constant",
+            "ckd_epi_2021_kappa_female",
+            "ckd_epi_2021_kappa_male",
+            "ckd_epi_2021_age_base",
         ):
             if getattr(self, name) <= 0:
                 raise ValueError(f"threshold {name} must be positive")
