@@ -199,8 +199,9 @@ class Settings(BaseSettings):
     logging: LoggingSettings = Field(default_factory=LoggingSettings)
     ingest: IngestSettings = Field(default_factory=IngestSettings)
     display: DisplaySettings = Field(default_factory=DisplaySettings)
-    #: Overrides of clinical thresholds by key (see clinical/data/thresholds.toml).
-    clinical: dict[str, float] = Field(default_factory=dict)
+    #: Overrides of clinical thresholds by key (see clinical/data/thresholds.toml), and
+    #: ``correction_guideline`` ("stricter", "europe" or "us").
+    clinical: dict[str, float | str] = Field(default_factory=dict)
     #: True when started without a config file: a local trial (auth off, loopback only).
     local_trial: bool = False
 

@@ -52,7 +52,7 @@ FINDING_DISPLAY: dict[FindingCode, str] = {
     FindingCode.IMPLAUSIBLE: "Result not used (implausible or unconvertible)",
     FindingCode.OUT_OF_SCOPE: "Patient outside the adult scope",
     FindingCode.HYPOTONIC_FLUID_ORDER: "Hypotonic fluid ordered in hyponatremia",
-    FindingCode.ISOTONIC_FLUID_ORDER: "Isotonic saline ordered in hyponatremia",
+    FindingCode.ISOTONIC_FLUID_ORDER: "Isotonic sodium-containing fluid ordered in hyponatremia",
     FindingCode.HYPERTONIC_SALINE_ORDER: "Hypertonic saline ordered",
     FindingCode.DRUG_ORDER_RISK: "Hyponatremia-associated drug ordered",
     FindingCode.VAPTAN_ORDER: "Vasopressin-receptor antagonist ordered",

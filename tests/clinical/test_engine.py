@@ -278,7 +278,11 @@ def test_hypertonic_saline_adrogue_madias_example(th: Thresholds) -> None:
     assert v[V.CORRECTION_LIMIT_24H] == 10
     # 40 mL/h x 24 h = 0.96 L -> +16.5 mmol/L, above the limit.
     assert any("+16.5" in c for c in f.cautions)
-    assert any("150 mL of 3% saline over 20 min" in d for d in f.details)
+    # Verbalis 2013: goal 8 (top of 4-8) is offered, the limit shown beside it: 8 / 17.2.
+    assert v[V.CORRECTION_GOAL_24H] == 8
+    assert v[V.VOLUME_TO_GOAL_24H] == pytest.approx(0.47, abs=0.01)
+    # Spasovski 2014 section 8: no coded symptoms and no documented acute fall.
+    assert any("does not advise hypertonic saline" in d for d in f.details)
     assert f.remove_draft is None
 
 
