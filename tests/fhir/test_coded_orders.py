@@ -316,3 +316,24 @@ def test_display_units_reach_the_context_and_values_stay_canonical() -> None:
     ).context
     assert ctx.display_units is DisplayUnits.SI
     assert ctx.current[Analyte.CREATININE].value == 1.2
+
+
+@pytest.mark.parametrize(
+    "draft",
+    [
+        _draft("k1", _coded(ATC, "B05XA01")),  # openFDA GSRS WHO-ATC: potassium chloride
+        _draft(
+            "k2",
+            _coded(
+                RXNORM,
+                "0",
+                "potassium chloride 0.02 MEQ/ML / sodium chloride 9 MG/ML Injectable Solution",
+            ),
+            dosageInstruction=_litre(100),
+        ),
+    ],
+    ids=["ATC concentrate", "RxNorm premix"],
+)
+def test_coded_potassium_reaches_the_potassium_rule(draft: dict[str, Any]) -> None:
+    # potassium counts like sodium in the Adrogue-Madias numerator (Adrogue & Madias 2000)
+    assert "potassium-order" in _codes((draft,))
