@@ -210,6 +210,14 @@ class AlertsConfig(_Section):
     quality_page: bool = True
 
 
+class DisplaySettings(_Section):
+    """What clinicians read: ``units`` "conventional" (mg/dL, µg/dL ...) or "si" (mmol/L,
+    µmol/L, nmol/L ...) for lab numbers in card text; machine values stay in UCUM canonical
+    units either way."""
+
+    units: Literal["conventional", "si"] = "conventional"
+
+
 class Settings(BaseSettings):
     model_config = SettingsConfigDict(
         env_prefix="TONICITY_", env_nested_delimiter="__", extra="forbid"
@@ -222,6 +230,7 @@ class Settings(BaseSettings):
     logging: LoggingSettings = Field(default_factory=LoggingSettings)
     ingest: IngestSettings = Field(default_factory=IngestSettings)
     alerts: AlertsConfig = Field(default_factory=AlertsConfig)
+    display: DisplaySettings = Field(default_factory=DisplaySettings)
     #: Overrides of clinical thresholds by key (see clinical/data/thresholds.toml), and
     #: ``correction_guideline`` ("stricter", "europe" or "us").
     clinical: dict[str, float | str] = Field(default_factory=dict)

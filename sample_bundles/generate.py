@@ -651,7 +651,7 @@ class OrderCase:
     name: str
     slug: str  # the patient
     hook: str
-    drafts: tuple[tuple[str, str], ...]  # (kind "fluid"|"med", key)
+    drafts: tuple[tuple[str, str], ...]  # (kind "fluid"|"med"|"unidentified", key)
     selected: tuple[int, ...]  # indexes of selected drafts (order-select)
     must: tuple[str, ...]
     story: str
@@ -709,7 +709,40 @@ ORDER_CASES: tuple[OrderCase, ...] = (
         (("med", "kcl"),), (),
         ("potassium-order",),
         "Potassium chloride at Na 126 and K 3.2: it raises sodium and counts in the limit."),
+    OrderCase(
+        "o11-unidentified-fluid-sign", "p07-thiazide-ssri", "order-sign",
+        (("unidentified", "maintenance"),), (),
+        ("unidentified-order",),
+        "'Maintenance IV fluid' 1000 mL at 100 mL/h at Na 126: make-up unreadable, the card "
+        "shows what was sent."),
 )
+
+# Draft orders no code or name identifies: key -> (text, volume mL, rate mL/h).
+UNIDENTIFIED: dict[str, tuple[str, float, float]] = {
+    "maintenance": ("Maintenance IV fluid per protocol", 1000, 100),
+}
+
+
+def unidentified_request(p: Person, key: str, rid: str) -> dict[str, Any]:
+    text, volume, rate = UNIDENTIFIED[key]
+    return {
+        "resourceType": "MedicationRequest",
+        "id": rid,
+        "status": "draft",
+        "intent": "order",
+        "medicationCodeableConcept": {"text": text},
+        "subject": {"reference": f"Patient/{p.pid}"},
+        "authoredOn": NOW_ISO,
+        "dosageInstruction": [{
+            "text": f"{text}, {volume:g} mL at {rate:g} mL/h",
+            "route": {"coding": [{"system": SNOMED, "code": "47625008",
+                                  "display": "Intravenous route"}]},
+            "doseAndRate": [{
+                "doseQuantity": {"value": volume, "unit": "mL", "system": UCUM, "code": "mL"},
+                "rateQuantity": {"value": rate, "unit": "mL/h", "system": UCUM, "code": "mL/h"},
+            }],
+        }],
+    }
 
 
 def drafts_for(p: Person, case: OrderCase) -> list[dict[str, Any]]:
@@ -718,6 +751,8 @@ def drafts_for(p: Person, case: OrderCase) -> list[dict[str, Any]]:
         rid = f"{case.name}-draft-{n}"
         if kind == "fluid":
             out.append(fluid_request(p, key, rid))
+        elif kind == "unidentified":
+            out.append(unidentified_request(p, key, rid))
         else:
             out.append(medication_request(p, key, status="draft", rid=rid))
     return out

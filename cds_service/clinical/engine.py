@@ -17,6 +17,7 @@ from cds_service.clinical.findings import Finding, FindingCode, InputUsed, Urgen
 from cds_service.clinical.notes import CAUTION, LABELS, num, shorten
 from cds_service.clinical.orders import order_findings
 from cds_service.clinical.thresholds import Thresholds
+from cds_service.clinical.unidentified import unidentified_findings
 from cds_service.clinical.workup import workup_findings
 
 __all__ = ["evaluate_orders", "evaluate_workup"]
@@ -134,4 +135,4 @@ def evaluate_orders(ctx: ClinicalContext, th: Thresholds) -> list[Finding]:
     gate = _out_of_scope(ctx, th)
     if gate is not None:
         return [gate]
-    return _assemble(ctx, th, order_findings(ctx, th))
+    return _assemble(ctx, th, [*order_findings(ctx, th), *unidentified_findings(ctx, th)])

@@ -299,9 +299,9 @@ def siadh_supplemental(ctx: ClinicalContext, th: Thresholds) -> tuple[Criterion,
         if measured is not None:
             out.append(
                 Criterion(
-                    f"{label} < {num(below)} mg/dL",
+                    f"{label} < {qty(below, analyte, ctx.display_units)}",
                     Status.MET if measured < below else Status.NOT_MET,
-                    f"{num(measured)} mg/dL",
+                    qty(measured, analyte, ctx.display_units),
                 )
             )
     limits = {

@@ -2,6 +2,11 @@
 
 from __future__ import annotations
 
+import math
+from dataclasses import dataclass
+from functools import cache
+
+from cds_service.clinical._data import DataFileError, read_data_file
 from cds_service.clinical.context import CANONICAL_UNITS, Analyte, DisplayUnits, LabResult
 from cds_service.clinical.findings import InputUsed, Value, ValueName
 
@@ -97,6 +102,12 @@ HUMAN_UNITS: dict[str, str] = {
     "cm": "cm",
     "ng/dL": "ng/dL",
     "mL/min/{1.73_m2}": "mL/min/1.73 m²",
+    "umol/L": "µmol/L",
+    "nmol/L": "nmol/L",
+    "pmol/L": "pmol/L",
+    "g/L": "g/L",
+    "mL/h": "mL/h",
+    "ug": "µg",
 }
 
 
@@ -105,12 +116,66 @@ def human_unit(ucum: str) -> str:
     return HUMAN_UNITS.get(ucum, ucum)
 
 
+@dataclass(frozen=True, slots=True)
+class SiUnit:
+    unit: str  # UCUM
+    factor: float  # SI = conventional x factor
+
+
+@cache
+def si_units() -> dict[Analyte, SiUnit]:
+    """SI display units per analyte (``clinical/data/display_units.toml``)."""
+    table = read_data_file("display_units.toml").get("si")
+    if not isinstance(table, dict):
+        raise DataFileError("display_units.toml: needs [si.<analyte>] tables")
+    out = {}
+    for key, entry in table.items():
+        try:
+            factor = float(entry["factor"])
+            if "molar_mass" in entry:  # the exact factor: a power of ten over the molar mass
+                mass = float(entry["molar_mass"])
+                factor = 10 ** round(math.log10(factor * mass)) / mass
+            out[Analyte(key)] = SiUnit(str(entry["unit"]), factor)
+        except (ValueError, KeyError, TypeError) as exc:
+            raise DataFileError(f"display_units.toml: [si.{key}]: {exc}") from None
+    return out
+
+
+def _significant(x: float) -> int:
+    """Significant digits of a value as it stands (at most 6, the precision the FHIR layer
+    keeps after unit conversion)."""
+    text = f"{abs(x):.6g}"
+    if "e" in text:
+        text = f"{abs(x):.6f}"
+    if "." not in text:  # a whole number: every digit as sent counts (540 has three)
+        return len(text.lstrip("0")) or 1
+    return len(text.replace(".", "").lstrip("0")) or 1
+
+
+def _round_significant(x: float, sig: int) -> float:
+    if x == 0:
+        return 0.0
+    return round(x, sig - 1 - math.floor(math.log10(abs(x))))
+
+
+def display_value(
+    x: float, analyte: Analyte, display: DisplayUnits = DisplayUnits.CONVENTIONAL
+) -> tuple[float, str]:
+    """(value, UCUM unit) for card text. In SI the converted value keeps the significant
+    digits of the value it came from (at least two), so 1.2 mg/dL creatinine reads
+    110 µmol/L, not 106.08: no precision the laboratory did not report."""
+    si = si_units().get(analyte) if display is DisplayUnits.SI else None
+    if si is None:
+        return round(x, 1), CANONICAL_UNITS[analyte]
+    return _round_significant(x * si.factor, max(_significant(x), 2)), si.unit
+
+
 def qty(x: float, analyte: Analyte, display: DisplayUnits = DisplayUnits.CONVENTIONAL) -> str:
-    """A lab quantity for card text, in the institution's display units: ``"7.2 mg/dL"``.
+    """A lab quantity for card text, in the institution's display units: ``"7.2 mg/dL"``,
+    or with ``display`` SI ``"2.6 mmol/L"``.
 
     Write every lab number with its unit through this function so that the display-unit
-    setting (``ctx.display_units``) applies everywhere. Until SI display is implemented the
-    conventional (canonical) unit is shown for both settings.
+    setting (``ctx.display_units``) applies everywhere; machine values stay canonical.
     """
-    del display  # SI display: see the real-records issue
-    return f"{num(x)} {human_unit(CANONICAL_UNITS[analyte])}"
+    value, unit = display_value(x, analyte, display)
+    return f"{num(value, 6)} {human_unit(unit)}"

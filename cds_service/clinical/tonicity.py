@@ -325,22 +325,22 @@ def tonicity_finding(c: Chemistry) -> Finding:
 
 
 def _pseudo_lines(c: Chemistry) -> list[str]:
-    th = c.th
+    th, units = c.th, c.ctx.display_units
     tg, tp = c.val(Analyte.TRIGLYCERIDES), c.val(Analyte.TOTAL_PROTEIN)
     lines = ["Pseudohyponatremia clues (indirect ISE reads low when plasma water is low):"]
     if tg is None and tp is None:
         lines.append("- triglycerides and total protein not measured")
     if tg is not None:
         high = tg > th.triglycerides_clue_above
-        lines.append(
-            f"- triglycerides {num(tg, 0)} mg/dL"
-            + (f" (above {num(th.triglycerides_clue_above, 0)}: a clue)" if high else "")
-        )
+        shown = qty(tg, Analyte.TRIGLYCERIDES, units)
+        limit = qty(th.triglycerides_clue_above, Analyte.TRIGLYCERIDES, units)
+        lines.append(f"- triglycerides {shown}" + (f" (above {limit}: a clue)" if high else ""))
     if tp is not None:
         high = tp > th.total_protein_clue_above
+        shown = qty(tp, Analyte.TOTAL_PROTEIN, units)
+        limit = qty(th.total_protein_clue_above, Analyte.TOTAL_PROTEIN, units)
         lines.append(
-            f"- total protein {num(tp)} g/dL"
-            + (f" (above {num(th.total_protein_clue_above)}: paraprotein clue)" if high else "")
+            f"- total protein {shown}" + (f" (above {limit}: paraprotein clue)" if high else "")
         )
         water = formulas.plasma_water_percent(tp, (tg or 0) / 1000, th)
         lines.append(

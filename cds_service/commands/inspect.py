@@ -108,6 +108,7 @@ def run(args: argparse.Namespace) -> int:
         resources,
         now=parse_now(args.now),
         settings=settings.ingest,
+        display_units=settings.display.units,
         patient_id=args.patient or pid,
         draft_orders=drafts,
         selections=selections,

@@ -9,7 +9,7 @@ gets a report line saying what it was understood as, and used or ignored and why
 from __future__ import annotations
 
 from collections.abc import Collection, Iterable
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from datetime import UTC, datetime, timedelta
 from functools import lru_cache
 from typing import Any
@@ -17,8 +17,10 @@ from typing import Any
 from cds_service.clinical.context import (
     ClinicalContext,
     ConditionEntry,
+    DisplayUnits,
     DraftFluid,
     DraftMedication,
+    DraftUnidentified,
     MedicationEntry,
 )
 from cds_service.config import IngestSettings
@@ -136,7 +138,7 @@ def _draft(
     collected: Collected,
     selected: bool,
     report: ReportBuilder,
-) -> DraftFluid | DraftMedication | None:
+) -> DraftFluid | DraftMedication | DraftUnidentified | None:
     kind = text(resource.get("resourceType")) or "?"
     if kind not in ("MedicationRequest", "MedicationStatement"):
         report.ignore(key, f"draft {kind}", "draft order type not checked by Tonicity")
@@ -162,6 +164,10 @@ def _draft(
             rate_ml_per_h=comp.rate_ml_per_h,
             selected=selected,
         )
+    unknown = fluids.unidentified(resource, med, found, comp)
+    if unknown is not None:
+        report.add(key, f"draft {unknown.kind}, not identified: {unknown.display}", True, flag)
+        return replace(unknown, resource_id=key, selected=selected)
     if not found.names and not found.rxnorm:
         report.ignore(key, f"draft {kind}", "no medication code or name")
         return None
@@ -183,11 +189,13 @@ def build_context(
     selections: Collection[str] = (),
     report_lines: bool = True,
     partial_reads: Collection[str] = (),
+    display_units: str = DisplayUnits.CONVENTIONAL,
 ) -> Ingested:
     """The ClinicalContext for one patient at ``now``, and what was understood of each resource
     (``report_lines`` False: the same context, an empty report, for callers that do not show
     it). ``partial_reads``: the queries (prefetch keys) of which only the first page(s) were
-    read; the context carries them so that the cards resting on them say so."""
+    read; the context carries them so that the cards resting on them say so.
+    ``display_units``: the institution's units for card text (``display.units``)."""
     now = _aware(now)
     report = ReportBuilder(enabled=report_lines)
     collected = collect(resources, report)
@@ -216,7 +224,9 @@ def build_context(
         conditions=tuple(_unique_conditions(record.conds)),
         draft_fluids=tuple(d for d in drafts if isinstance(d, DraftFluid)),
         draft_medications=tuple(d for d in drafts if isinstance(d, DraftMedication)),
+        draft_unidentified=tuple(d for d in drafts if isinstance(d, DraftUnidentified)),
         partial_reads=tuple(sorted(set(partial_reads))),
+        display_units=DisplayUnits(display_units),
     )
     return Ingested(ctx, report.build())
 
@@ -290,10 +300,10 @@ def _drafts(
     collected: Collected,
     selections: Collection[str],
     report: ReportBuilder,
-) -> list[DraftFluid | DraftMedication]:
+) -> list[DraftFluid | DraftMedication | DraftUnidentified]:
     draft_set = collect(draft_orders, report, Collected(index=dict(collected.index)))
     wanted = {s for s in selections if isinstance(s, str)}
-    out: list[DraftFluid | DraftMedication] = []
+    out: list[DraftFluid | DraftMedication | DraftUnidentified] = []
     for key, res in draft_set.resources:
         if res.get("resourceType") == "Medication":
             continue

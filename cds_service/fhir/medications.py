@@ -1,4 +1,5 @@
-"""Medication names: RxNorm codes and lowercase generic names from whatever a record sends."""
+"""Medication names: RxNorm and ATC codes and lowercase generic names from whatever a record
+sends (RxNorm ingredient and clinical-drug codes, WHO ATC codes, product labels)."""
 
 from __future__ import annotations
 
@@ -11,6 +12,11 @@ from cds_service.fhir._data import load
 from cds_service.fhir._json import codings, concept_text, items, obj, text
 
 RXNORM_SYSTEM = "http://www.nlm.nih.gov/research/umls/rxnorm"
+ATC_SYSTEM = "http://www.whocc.no/atc"
+#: Code systems whose medication codes Tonicity reads (codes) or can at least name (SNOMED CT
+#: products and substances are read through their displays). A draft coded only in other
+#: systems, with no generic name Tonicity knows, is shown as unidentified.
+KNOWN_SYSTEMS = frozenset({RXNORM_SYSTEM, ATC_SYSTEM, "http://snomed.info/sct"})
 _BRACKETS = re.compile(r"\[[^\]]*\]|\([^)]*\)")
 _SPLIT = re.compile(r"\s+/\s+|\s+\+\s+|\s+and\s+")
 _CLAUSE = re.compile(r"[,;(]")  # "atorvastatin 40 mg tablet, at night": the name ends at the comma
@@ -23,6 +29,16 @@ class MedicationNames:
     rxnorm: tuple[str, ...]
     display: str
     texts: tuple[str, ...]  # every text seen (concept text, coding displays, ingredients)
+    codes: tuple[str, ...] = ()  # "system|code" of every coding, as read
+    atc: tuple[str, ...] = ()
+
+    @property
+    def identified(self) -> bool:
+        """Coded in a system Tonicity reads, or named by a generic name it knows."""
+        known = _known_names()
+        if any(c.split("|", 1)[0] in KNOWN_SYSTEMS for c in self.codes):
+            return True
+        return any(n in known for n in self.names)
 
 
 @cache
@@ -34,6 +50,18 @@ def _vocab() -> tuple[dict[str, str], frozenset[str], frozenset[str]]:
         frozenset(names["salt_words"]),
         frozenset(names["form_words"]),
     )
+
+
+@cache
+def _atc() -> dict[str, str]:
+    """ATC code -> lowercase generic name (data/medications.toml [atc_ingredients])."""
+    table = load("medications")["atc_ingredients"]
+    return {k.upper(): v for k, v in table.items() if isinstance(v, str)}
+
+
+@cache
+def _known_names() -> frozenset[str]:
+    return frozenset(_vocab()[0].values()) | frozenset(_atc().values())
 
 
 def generic_names(label: str) -> list[str]:
@@ -109,16 +137,27 @@ def ingredient_concepts(med: dict[str, Any]) -> list[dict[str, Any]]:
 def names_of(med: dict[str, Any]) -> MedicationNames:
     """Generic names and RxNorm codes of a Medication-like holder (see :func:`medication_of`)."""
     rx_table, _, _ = _vocab()
+    atc_table = _atc()
     rxnorm: list[str] = []
+    atc: list[str] = []
+    codes: list[str] = []
     texts: list[str] = []
     names: list[str] = []
     for concept in [obj(med.get("code")), *ingredient_concepts(med)]:
         for system, code, display in codings(concept):
+            if code:
+                codes.append(f"{system}|{code}")
             if system == RXNORM_SYSTEM and code:
                 if code not in rxnorm:
                     rxnorm.append(code)
                 if code in rx_table and rx_table[code] not in names:
                     names.append(rx_table[code])
+            if system == ATC_SYSTEM and code:
+                if code.upper() not in atc:
+                    atc.append(code.upper())
+                name = atc_table.get(code.upper())
+                if name and name not in names:
+                    names.append(name)
             if display:
                 texts.append(display)
         label = text(concept.get("text"))
@@ -129,4 +168,6 @@ def names_of(med: dict[str, Any]) -> MedicationNames:
             if name not in names:
                 names.append(name)
     display = concept_text(med.get("code")) or (texts[0] if texts else "")
-    return MedicationNames(tuple(names), tuple(rxnorm), display, tuple(texts))
+    return MedicationNames(
+        tuple(names), tuple(rxnorm), display, tuple(texts), tuple(dict.fromkeys(codes)), tuple(atc)
+    )

@@ -13,7 +13,8 @@ from typing import Any, NamedTuple
 
 from cds_service.clinical.context import CANONICAL_UNITS, Analyte, LabResult, RejectedResult
 from cds_service.fhir import loinc, units, validate
-from cds_service.fhir._json import concept_text, items, number, obj, system_uri, text
+from cds_service.fhir._data import load
+from cds_service.fhir._json import codings, concept_text, items, number, obj, system_uri, text
 from cds_service.fhir.report import ReportBuilder
 from cds_service.fhir.times import parse_datetime
 
@@ -44,6 +45,46 @@ def _mapped(system: Any, code: Any) -> loinc.LoincEntry | None:
     return None
 
 
+_INTERPRETATION_SYSTEM = "http://terminology.hl7.org/CodeSystem/v3-ObservationInterpretation"
+
+
+def _words(concept: Any) -> str:
+    """Lowercase text and coding displays of a CodeableConcept (or a Reference's display)."""
+    c = obj(concept)
+    parts = [text(c.get("text")) or "", text(c.get("display")) or ""]
+    parts += [display for _, _, display in codings(c)]
+    return " ".join(parts).lower()
+
+
+def direct_ise(resource: dict[str, Any], entry: loinc.LoincEntry) -> bool:
+    """Whether the result was measured by direct ISE: Observation.method says so first
+    ("direct ISE", "indirect ISE"), then the specimen (whole blood or serum), then the LOINC
+    code's specimen (data/observations.toml, data/loinc.toml)."""
+    ise = load("observations")["ise"]
+    method = _words(resource.get("method"))
+    if any(w in method for w in ise["indirect"]):
+        return False
+    if any(w in method for w in ise["direct"]):
+        return True
+    specimen = _words(resource.get("specimen"))
+    if any(w in specimen for w in ise["whole_blood"]):
+        return True
+    if any(w in specimen for w in ise["serum"]):
+        return False
+    return entry.direct_ise
+
+
+def interpretation_flags(holder: dict[str, Any]) -> list[tuple[str, str]]:
+    """(code, clinician's words) of the v3 interpretation flags of an Observation or component."""
+    table = load("observations")["interpretation"]
+    out = []
+    for concept in items(holder.get("interpretation")):
+        for system, code, _ in codings(concept):
+            if system == _INTERPRETATION_SYSTEM and isinstance(table.get(code), str):
+                out.append((code, table[code]))
+    return out
+
+
 def effective_time(resource: dict[str, Any]) -> datetime | None:
     """effectiveDateTime, effectivePeriod (end, else start), effectiveInstant, else issued."""
     for key in ("effectiveDateTime", "effectiveInstant"):
@@ -66,6 +107,7 @@ class _Plan(NamedTuple):
     preliminary: bool
     low: float
     high: float
+    direct_ise: bool
 
 
 #: The fields that make up an Observation's shape: the validated read fields except the
@@ -181,7 +223,7 @@ class ObservationReader:
                 f"{plan.comparator or ''}{number_} {plan.unit_text}".strip(),
                 plan.comparator,
                 plan.preliminary,
-                entry.direct_ise,
+                plan.direct_ise,
                 entry.code,
             )
         )
@@ -210,7 +252,16 @@ class ObservationReader:
         info = units.analyte_units(analyte)
         unit_text = value.unit or value.code or ""
         preliminary = status == "preliminary"
-        return _Plan(main[0], factor, value.comparator, unit_text, preliminary, info.low, info.high)
+        return _Plan(
+            main[0],
+            factor,
+            value.comparator,
+            unit_text,
+            preliminary,
+            info.low,
+            info.high,
+            direct_ise(resource, main[0]),
+        )
 
     def read(self, resource: dict[str, Any], key: str) -> None:
         main = mapped_entries(resource.get("code"))[:1]
@@ -241,7 +292,15 @@ class ObservationReader:
             return
         holders = [(resource, entry) for entry in main] + parts
         for holder, entry in holders:
-            self._read_one(holder, entry, key, when, preliminary=status == "preliminary")
+            self._read_one(
+                holder,
+                entry,
+                key,
+                when,
+                preliminary=status == "preliminary",
+                direct=direct_ise(resource, entry),
+                resource=resource,
+            )
 
     def _read_one(
         self,
@@ -251,12 +310,20 @@ class ObservationReader:
         when: datetime,
         *,
         preliminary: bool,
+        direct: bool,
+        resource: dict[str, Any],
     ) -> None:
         analyte = entry.analyte
         label = f"{analyte.value} (LOINC {entry.code})"
         canonical = CANONICAL_UNITS[analyte]
         value = read_value(holder)
         if isinstance(value, str):
+            flags = interpretation_flags(holder) or interpretation_flags(resource)
+            if flags:  # the result exists, flagged, but has no number: say so, never drop it
+                code, words = flags[0]
+                reason = f"reported as {words} ({code}) without a number: {value}; not used"
+                self._reject(analyte, f"no number, flagged {code}", reason, when, key, label)
+                return
             self.report.ignore(key, label, value, analyte=analyte.value, time=when)
             return
         try:
@@ -299,15 +366,13 @@ class ObservationReader:
                 raw=value.raw,
                 comparator=value.comparator,
                 preliminary=preliminary,
-                direct_ise=entry.direct_ise,
+                direct_ise=direct,
                 loinc=entry.code,
             )
         )
         if not self.report.enabled:
             return
-        notes = [
-            n for n, on in (("preliminary", preliminary), ("direct ISE", entry.direct_ise)) if on
-        ]
+        notes = [n for n, on in (("preliminary", preliminary), ("direct ISE", direct)) if on]
         self.report.add(
             key,
             label,

@@ -1,7 +1,8 @@
 """Validate one raw resource with its fhir.resources R4B model; a short reason when invalid.
 
 Observations are validated in their *read* form: only the elements Tonicity reads (status,
-code, subject, effective[x], issued, value[x], dataAbsentReason, component) go through the
+code, subject, effective[x], issued, value[x], dataAbsentReason, interpretation, method,
+specimen, component) go through the
 R4B model, so a narrative or reference range Tonicity never looks at costs nothing and cannot
 make a usable result unusable. Within one request, Observations that differ only in id, time
 and numeric value share one validation (keyed by the rest, see :func:`_key`): times are parsed
@@ -39,7 +40,8 @@ _READ = {
     "Observation": (
         "resourceType", "id", "status", "code", "subject", "effectiveDateTime",
         "effectivePeriod", "effectiveInstant", "issued", "valueQuantity", "valueString",
-        "valueInteger", "dataAbsentReason", "component",
+        "valueInteger", "dataAbsentReason", "interpretation", "method", "specimen",
+        "component",
     ),
 }  # fmt: skip
 _UNSEEN: Any = object()

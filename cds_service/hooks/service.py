@@ -432,6 +432,7 @@ async def evaluate(
             selections=call.selections,
             report_lines=False,  # the hook response does not carry the ingest report
             partial_reads=state.partial,
+            display_units=settings.display.units,
         )
     ctx = ingested.context
     if call.service.hook == "patient-view":

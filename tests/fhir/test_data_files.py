@@ -69,3 +69,32 @@ def test_every_snomed_id_has_a_valid_check_digit() -> None:
         if not _verhoeff_valid(code)
     ]
     assert bad == []
+
+
+def test_drug_class_codes_agree_with_the_fhir_medication_vocabulary() -> None:
+    """A code in drug_classes.toml (RxNorm ingredient or WHO ATC) must name the same generic in
+    fhir/data/medications.toml, which turns codes into names; otherwise a coded order would
+    silently miss its class."""
+    import tomllib
+    from importlib import resources
+
+    text = resources.files("cds_service.clinical").joinpath("data", "drug_classes.toml")
+    classes = tomllib.loads(text.read_text("utf-8"))["classes"]
+    meds = load("medications")
+    rxnorm, atc = meds["rxnorm_ingredients"], meds["atc_ingredients"]
+    for key, entry in classes.items():
+        for name, code in entry["drugs"].items():
+            if code:
+                assert rxnorm.get(code) == name, (key, name, code)
+        for name, code in entry.get("atc", {}).items():
+            assert name in entry["drugs"], (key, name)
+            assert atc.get(code) == name, (key, name, code)
+    assert set(atc["checked"]) <= {k for k, v in atc.items() if isinstance(v, str)}
+
+
+def test_fluid_codes_name_a_composition_the_parser_reads() -> None:
+    from cds_service.fhir.fluids import parse_text
+
+    for code, entry in load("fluids")["rxnorm_products"].items():
+        assert code.isdigit() and entry["source"] and isinstance(entry["checked"], bool)
+        assert parse_text(entry["name"]).is_fluid, code

@@ -5,7 +5,9 @@ A hook call reads Observations through ``ObservationReader.fast`` (report lines 
 (common practice for an optimisation: it must not change an answer) is that both give the same
 clinical context, for well-formed records with every variation a laboratory feed shows: several
 analytes and units, statuses, other patients, duplicates, comparators, times after now,
-implausible values, units that do not convert, components, and shapes shared by many results.
+implausible values, units that do not convert, components, and shapes shared by many results;
+Observation.method and specimen (direct against indirect ISE), a local coding before the
+LOINC one, and results flagged (interpretation LL) with a dataAbsentReason and no number.
 """
 
 from __future__ import annotations
@@ -48,6 +50,7 @@ _TIMES = st.sampled_from(
     ["2026-11-30T08:00:00Z", "2026-11-29T20:00:00Z", "2026-11-30T08:00:00", "2026-11-28",
      "2026-11-30T13:00:00Z", "2026-11-25T06:30:00+02:00"]
 )  # fmt: skip
+_INTERPRETATION = "http://terminology.hl7.org/CodeSystem/v3-ObservationInterpretation"
 _VALUES = (
     st.integers(min_value=-5, max_value=400)
     | st.floats(min_value=-5, max_value=400, allow_nan=False)
@@ -72,10 +75,19 @@ def _observation(draw: st.DrawFn, index: int) -> dict[str, Any]:
     quantity = {"value": draw(_VALUES), **draw(_UNITS)}
     if draw(st.booleans()) and draw(st.booleans()):
         quantity["comparator"] = draw(st.sampled_from(["<", ">=", "~"]))
+    if draw(st.booleans()):
+        obs["method"] = {"text": draw(st.sampled_from(["direct ISE", "indirect ISE", "other"]))}
+    if draw(st.booleans()):
+        obs["specimen"] = {"display": draw(st.sampled_from(["whole blood", "serum", "urine"]))}
+    if draw(st.booleans()):  # a local code before the LOINC one (LOINC is chosen)
+        obs["code"]["coding"].insert(0, {"system": "urn:lvh:lab", "code": "NA1"})
     if draw(st.integers(0, 9)) == 0:
         obs["component"] = [
             {"code": {"coding": [{"system": LOINC, "code": "2951-2"}]}, "valueQuantity": quantity}
         ]
+    elif draw(st.integers(0, 9)) == 0:
+        obs["dataAbsentReason"] = {"text": "sample haemolysed"}
+        obs["interpretation"] = [{"coding": [{"system": _INTERPRETATION, "code": "LL"}]}]
     else:
         obs["valueQuantity"] = quantity
     return obs
