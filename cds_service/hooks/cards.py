@@ -40,8 +40,9 @@ VALUES_EXTENSION = "tonicity.values"
 #: Said first on every card when no readable Patient was had (PatientFacts.known False).
 PATIENT_NOT_CHECKED = (
     "**Age and sex could not be checked**: no readable Patient record was available. Confirm "
-    "that the patient is an adult (18 years or over) before using this card; numbers that "
-    "depend on age or sex (total body water, sex-specific limits) are qualified below."
+    "that the patient is an adult (18 years or over) before using this card; numbers on it "
+    "that depend on age or sex (total body water, sex-specific limits) cannot be relied on "
+    "until they are."
 )
 
 #: Finding codes whose cards rest on the medication queries (prefetch keys below).
