@@ -30,6 +30,7 @@ from starlette.concurrency import run_in_threadpool
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
 from cds_service import logs, ops
+from cds_service.alerts import live as alerts
 from cds_service.config import Settings
 from cds_service.errors import UserError
 from cds_service.hooks.auth import Authenticator, AuthError
@@ -298,6 +299,10 @@ class _Unauthorized(Exception):
 
 
 def _install_routes(app: FastAPI, settings: Settings) -> None:
+    # The alert policy's settings, checked now (a refused configuration never serves).
+    alert_settings = alerts.settings_for(settings, SERVICES)
+    app.state.alert_settings = alert_settings
+
     @app.exception_handler(_Unauthorized)
     async def _unauthorized(_request: Request, exc: _Unauthorized) -> JSONResponse:
         return operation_outcome(
@@ -307,7 +312,7 @@ def _install_routes(app: FastAPI, settings: Settings) -> None:
     @app.get("/cds-services")
     async def list_services(request: Request) -> JSONResponse:
         await _authenticate(request, settings)
-        return JSONResponse(discovery())
+        return JSONResponse(alerts.annotate_discovery(discovery(), alert_settings))
 
     @app.post("/cds-services/{service_id}")
     async def call_service(service_id: str, request: Request) -> JSONResponse:
@@ -357,6 +362,7 @@ def _install_routes(app: FastAPI, settings: Settings) -> None:
                     parse_body(raw),
                     getattr(caller, "issuer", None),
                     datetime.now(UTC),
+                    alerts.quiet_maker(alert_settings),
                 )
             )
         except UserError as exc:
@@ -373,10 +379,13 @@ async def _evaluate_off_loop(
     server = settings.server
     gate: LargeCallGate = state.large_calls
     declared = declared_length(request)
+    replay_call = request.headers.get(alerts.REPLAY_HEADER)  # tonicity replay's call id
+    if replay_call is not None and not alerts.REPLAY_CALL.fullmatch(replay_call):
+        raise HookError(400, f"{alerts.REPLAY_HEADER} must be 1-64 letters, digits or -")
     large = declared is not None and declared > server.large_call_bytes
     if large and not gate.try_enter():
         raise Busy  # refused before its body is read
-    try:
+    try:  # from here on, a slot taken is given back whatever happens
         raw = await read_body(request, server.max_body_bytes)
         if not large and len(raw) > server.large_call_bytes:  # sent without Content-Length
             if not gate.try_enter():
@@ -396,6 +405,7 @@ async def _evaluate_off_loop(
                     service_id=service_id,
                     store=state.store,
                     authenticator=state.authenticator,
+                    replay_call=replay_call,
                 )
 
         return await state.pool.run(work, large=large)

@@ -187,6 +187,29 @@ class IngestSettings(_Section):
     pairing_hours: float = Field(2.0, gt=0)  # glucose/urea paired with the sodium draw
 
 
+class FindingAlertSettings(_Section):
+    """``[alerts.findings.<finding code>]``: one finding's alert settings."""
+
+    mode: Literal["show", "silent", "off"] = "show"
+    window_hours: float | None = Field(None, gt=0, le=24 * 31)
+    raise_to: Literal["warning", "critical"] | None = None
+    lower_to: Literal["info", "warning"] | None = None
+
+
+class AlertsConfig(_Section):
+    """``[alerts]``: repeat suppression, per-finding settings and silent go-live
+    (``cds_service/alerts``; finding codes and service ids are checked there)."""
+
+    suppression: bool = True
+    scope: Literal["patient", "patient-and-user"] = "patient"
+    silent_services: list[str] = Field(default_factory=list)
+    findings: dict[str, FindingAlertSettings] = Field(default_factory=dict)
+    managed_quiet_hours: float | None = Field(None, gt=0, le=24 * 7)
+    critical_quiet_max_hours: float | None = Field(None, gt=0, le=24)
+    unsafe_allow_silencing_critical: bool = False
+    quality_page: bool = True
+
+
 class Settings(BaseSettings):
     model_config = SettingsConfigDict(
         env_prefix="TONICITY_", env_nested_delimiter="__", extra="forbid"
@@ -198,6 +221,7 @@ class Settings(BaseSettings):
     fhir: FhirSettings = Field(default_factory=FhirSettings)
     logging: LoggingSettings = Field(default_factory=LoggingSettings)
     ingest: IngestSettings = Field(default_factory=IngestSettings)
+    alerts: AlertsConfig = Field(default_factory=AlertsConfig)
     #: Overrides of clinical thresholds by key (see clinical/data/thresholds.toml), and
     #: ``correction_guideline`` ("stricter", "europe" or "us").
     clinical: dict[str, float | str] = Field(default_factory=dict)

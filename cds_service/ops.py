@@ -131,7 +131,11 @@ def readyz(request: Request) -> JSONResponse:
     problems = readiness_problems(request.app.state)
     if problems:
         return JSONResponse(_outcome(problems), status_code=503, media_type="application/fhir+json")
-    return JSONResponse({"status": "ready"})
+    body = {"status": "ready"}
+    alert_settings = getattr(request.app.state, "alert_settings", None)
+    if alert_settings is not None:  # which alert settings are live (cds_service/alerts)
+        body["alertSettingsDigest"] = alert_settings.digest
+    return JSONResponse(body)
 
 
 @router.get("/metrics", include_in_schema=False)

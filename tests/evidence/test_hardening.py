@@ -128,7 +128,7 @@ def test_non_finite_or_fractional_numeric_dates_are_401(
     ],
 )
 def test_feedback_timestamps_that_cannot_be_converted_are_400(trial: Any, stamp: str) -> None:
-    body = {"feedback": [{"card": "c-1", "outcome": "accepted", "outcomeTimestamp": stamp}]}
+    body = {"feedback": [{"card": "c-1", "outcome": "overridden", "outcomeTimestamp": stamp}]}
     r = trial.post(FEEDBACK, json=body)
     assert_clean(r, "hardening")
     assert r.status_code == 400
@@ -136,10 +136,14 @@ def test_feedback_timestamps_that_cannot_be_converted_are_400(trial: Any, stamp:
 
 
 @pytest.mark.parametrize("stamp", ["9999-12-31T23:59:59+00:00", "0001-01-01T00:00:00Z"])
-def test_feedback_timestamps_at_the_edges_that_fit_are_stored(trial: Any, stamp: str) -> None:
-    body = {"feedback": [{"card": "c-1", "outcome": "accepted", "outcomeTimestamp": stamp}]}
+def test_feedback_timestamps_at_the_edges_that_fit_pass_validation(trial: Any, stamp: str) -> None:
+    body = {"feedback": [{"card": "c-1", "outcome": "overridden", "outcomeTimestamp": stamp}]}
     r = trial.post(FEEDBACK, json=body)
-    assert (r.status_code, r.json()) == (200, {"stored": 1})
+    assert_clean(r, "hardening")
+    # past the timestamp: refused only because this service never returned card c-1
+    assert r.status_code == 400
+    message = r.json()["issue"][0]["diagnostics"]
+    assert "outcomeTimestamp" not in message and "c-1" in message
 
 
 # ---- defect 6: framing -----------------------------------------------------------------------
@@ -230,8 +234,8 @@ def test_echoed_identifiers_are_capped(trial: Any) -> None:
 @pytest.mark.parametrize(
     ("aud", "status"),
     [
-        (f"{ENDPOINT}/feedback", 200),  # the feedback URL (CDS Hooks 2.0)
-        (ENDPOINT, 200),  # the service URL, which clients commonly reuse
+        (f"{ENDPOINT}/feedback", 400),  # the feedback URL (CDS Hooks 2.0): past auth, the
+        (ENDPOINT, 400),  # service URL too; 400 only as card c-1 was never returned
         (f"{BASE}/cds-services/sodium-order-sign", 401),  # another service's URL
         (f"{BASE}/cds-services", 401),
     ],
@@ -244,7 +248,7 @@ def test_feedback_accepts_its_service_url_as_audience(
         update={"storage": StorageSettings(url=f"sqlite:///{tmp_path / 'a.db'}")}
     )
     body = {
-        "feedback": [{"card": "c-1", "outcome": "accepted", "outcomeTimestamp": NOW.isoformat()}]
+        "feedback": [{"card": "c-1", "outcome": "overridden", "outcomeTimestamp": NOW.isoformat()}]
     }
     with TestClient(create_app(config), raise_server_exceptions=False) as client:
         client.app.state.authenticator._now = lambda: NOW
