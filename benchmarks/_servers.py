@@ -119,13 +119,15 @@ class Server:
         env: dict[str, str] | None = None,
         probe: str = "/healthz",
         start_timeout: float = 60.0,
+        cwd: Path | None = None,
     ) -> None:
         self.name = name
         self.argv = argv
         self.port = port
         self.base_url = f"http://127.0.0.1:{port}"
         self.log_path = log_dir / f"{name}-{port}.log"
-        self.env = {**os.environ, **(env or {}), "PYTHONPATH": str(ROOT)}
+        self.cwd = cwd or ROOT  # another checkout's code: its folder (python -m reads it first)
+        self.env = {**os.environ, **(env or {}), "PYTHONPATH": str(self.cwd)}
         self.probe = probe
         self.start_timeout = start_timeout
         self.proc: subprocess.Popen[bytes] | None = None
@@ -134,7 +136,7 @@ class Server:
         log = self.log_path.open("ab")
         self.proc = subprocess.Popen(
             self.argv,
-            cwd=ROOT,
+            cwd=self.cwd,
             env=self.env,
             stdout=log,
             stderr=subprocess.STDOUT,

@@ -379,13 +379,13 @@ async def _evaluate_off_loop(
     server = settings.server
     gate: LargeCallGate = state.large_calls
     declared = declared_length(request)
-    large = declared is not None and declared > server.large_call_bytes
-    if large and not gate.try_enter():
-        raise Busy  # refused before its body is read
     replay_call = request.headers.get(alerts.REPLAY_HEADER)  # tonicity replay's call id
     if replay_call is not None and not alerts.REPLAY_CALL.fullmatch(replay_call):
         raise HookError(400, f"{alerts.REPLAY_HEADER} must be 1-64 letters, digits or -")
-    try:
+    large = declared is not None and declared > server.large_call_bytes
+    if large and not gate.try_enter():
+        raise Busy  # refused before its body is read
+    try:  # from here on, a slot taken is given back whatever happens
         raw = await read_body(request, server.max_body_bytes)
         if not large and len(raw) > server.large_call_bytes:  # sent without Content-Length
             if not gate.try_enter():
