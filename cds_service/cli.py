@@ -21,6 +21,7 @@ COMMANDS: dict[str, tuple[str, str]] = {
     "feedback-report": ("feedback_report", "acceptance and override rates per finding code"),
     "db": ("db", "upgrade the database schema, or show its revision"),
     "knowledge": ("knowledge", "every threshold, drug class, infusate and code with its source"),
+    "rehearse": ("rehearse", "replay a Bulk Data export: alert burden and missed overcorrections"),
 }
 
 

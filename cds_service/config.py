@@ -73,6 +73,9 @@ class ServerSettings(_Section):
     def _strip_slash(cls, v: str) -> str:
         return v.rstrip("/")
 
+    #: Serve ``/metrics`` on this port only (same address), for a scraper on an internal
+    #: network; none: on the service's own port, as every other route.
+    metrics_port: int | None = Field(None, ge=1, le=65535)
     #: Origins (``https://host[:port]``) whose pages may show the trend page in a frame; empty:
     #: no page may frame it (CSP ``frame-ancestors 'none'``, ``X-Frame-Options: DENY``).
     trend_frame_ancestors: list[str] = Field(default_factory=list)
@@ -90,6 +93,8 @@ class ServerSettings(_Section):
 
     @model_validator(mode="after")
     def _room_for_small_calls(self) -> ServerSettings:
+        if self.metrics_port is not None and self.metrics_port == self.port:
+            raise ValueError("server.metrics_port must differ from server.port")
         if self.max_large_calls >= self.evaluation_threads:
             raise ValueError(
                 "server.max_large_calls must be below server.evaluation_threads, so that "
@@ -168,6 +173,9 @@ class FhirSettings(_Section):
 
 class LoggingSettings(_Section):
     level: str = "INFO"
+    #: ``json`` (one object per line, for collectors), ``text`` (for people), or ``auto``:
+    #: text when standard error is a terminal, JSON otherwise.
+    format: Literal["auto", "json", "text"] = "auto"
     patient_id_salt: str = "change-me-in-production"
 
 
@@ -214,8 +222,9 @@ class Settings(BaseSettings):
     logging: LoggingSettings = Field(default_factory=LoggingSettings)
     ingest: IngestSettings = Field(default_factory=IngestSettings)
     alerts: AlertsConfig = Field(default_factory=AlertsConfig)
-    #: Overrides of clinical thresholds by key (see clinical/data/thresholds.toml).
-    clinical: dict[str, float] = Field(default_factory=dict)
+    #: Overrides of clinical thresholds by key (see clinical/data/thresholds.toml), and
+    #: ``correction_guideline`` ("stricter", "europe" or "us").
+    clinical: dict[str, float | str] = Field(default_factory=dict)
     #: True when started without a config file: a local trial (auth off, loopback only).
     local_trial: bool = False
 

@@ -117,6 +117,7 @@ CONDITIONS: dict[str, tuple[str, str, str]] = {
     "hypertriglyceridemia": ("302870006", "E78.1", "Hypertriglyceridemia"),
     "pancreatitis": ("197456007", "K85.90", "Acute pancreatitis"),
     "hip_fracture": ("5913000", "S72.009A", "Fracture of neck of femur"),
+    "seizure": ("91175000", "R56.9", "Seizure"),
 }
 
 # Medications: key -> (RxNorm ingredient code, generic name, text as ordered). From memory.
@@ -128,6 +129,8 @@ MEDICATIONS: dict[str, tuple[str, str, str]] = {
     "glargine": ("274783", "insulin glargine", "insulin glargine 100 units/mL, 20 units at night"),
     "mannitol": ("6628", "mannitol", "mannitol 20% intravenous solution, 1 g/kg"),
     "tolvaptan": ("358258", "tolvaptan", "tolvaptan 15 mg oral tablet, once"),
+    "kcl": ("8591", "potassium chloride",
+            "potassium chloride 20 mmol in 100 mL intravenous solution, over 2 hours"),
 }
 
 # Draft IV fluids: key -> (text, NaCl %, dextrose %, volume mL, rate mL/h or None).
@@ -517,6 +520,15 @@ def people() -> list[Person]:
     out.append(Person(
         "p15-long-stay-heart-failure", "lvh-p15", "LVH-000115", "Winifred", "Ashdown", "female",
         "1947-03-02", labs=long_labs, conditions=["heart_failure"]))
+
+    # 16. Seizure with profound chronic hyponatremia (SIADH pattern after pneumonia).
+    out.append(Person(
+        "p16-seizure-severe-symptoms", "lvh-p16", "LVH-000116", "Lucinda", "Ferreira-Banks",
+        "female", "1968-09-12",
+        labs=panel(1, na=116, k=3.9, glu=101, bun=9, cr=0.7, sosm=246, uosm=490, una=64,
+                   tsh=2.1, cort=18.5, wt=62.0)
+        + panel(60, na=121),
+        conditions=["seizure", "pneumonia"]))
     return out
 
 
@@ -576,6 +588,9 @@ PATIENT_VIEW: dict[str, tuple[list[str], list[str], str]] = {
     "p15-long-stay-heart-failure": (
         ["hypotonic-hyponatremia", "low-urine-sodium"], [],
         "Day 40 of a heart-failure stay, over 300 results: slow fall to Na 129, urine Na 22."),
+    "p16-seizure-severe-symptoms": (
+        ["hypotonic-hyponatremia", "siadh-pattern"], [],
+        "Seizure coded, Na 116 after 121 two days earlier, urine osm 490: severe symptoms."),
 }
 
 
@@ -627,6 +642,21 @@ ORDER_CASES: tuple[OrderCase, ...] = (
         (("fluid", "d5w"), ("fluid", "nacl045")), (0, 1),
         ("out-of-scope",),
         "Child with D5W and 0.45% saline selected: out-of-scope only."),
+    OrderCase(
+        "o08-d5w-after-overcorrection-sign", "p14-overcorrection", "order-sign",
+        (("fluid", "d5w"),), (),
+        ("correction-rate-exceeded", "hypotonic-fluid-order"),
+        "D5W after Na rose 112 -> 124 in 20 hours: the advised re-lowering, amounts shown."),
+    OrderCase(
+        "o09-hypertonic-saline-seizure-select", "p16-seizure-severe-symptoms", "order-select",
+        (("fluid", "nacl3"),), (0,),
+        ("hypertonic-saline-order",),
+        "3% saline at Na 116 with a seizure coded: the repeated 150 mL bolus regimen."),
+    OrderCase(
+        "o10-potassium-sign", "p05-vomiting-legacy-units", "order-sign",
+        (("med", "kcl"),), (),
+        ("potassium-order",),
+        "Potassium chloride at Na 126 and K 3.2: it raises sodium and counts in the limit."),
 )
 
 

@@ -78,6 +78,23 @@ class ConditionCategory(StrEnum):
     ADRENAL_INSUFFICIENCY = "adrenal_insufficiency"
     SIADH = "siadh"
     VOMITING_DIARRHEA = "vomiting_diarrhea"
+    # Triggers of SIADH the work-up names when the record shows them (Spasovski 2014).
+    MALIGNANCY = "malignancy"
+    CNS_DISORDER = "cns_disorder"
+    PULMONARY_DISEASE = "pulmonary_disease"
+    NAUSEA = "nausea"
+    PAIN = "pain"
+    POSTOPERATIVE = "postoperative"
+    # Symptoms of hyponatremia as the 2014 European guideline classes them (Spasovski 2014,
+    # section 5.2 table): severe (seizures, coma, deep somnolence, cardiorespiratory distress;
+    # vomiting is also severe, coded above with diarrhoea) and moderately severe (confusion,
+    # headache). Read from coded problems; otherwise "to be assessed at the bedside".
+    SYMPTOM_SEIZURE = "symptom_seizure"
+    SYMPTOM_COMA = "symptom_coma"
+    SYMPTOM_SOMNOLENCE = "symptom_somnolence"
+    SYMPTOM_CARDIORESPIRATORY_DISTRESS = "symptom_cardiorespiratory_distress"
+    SYMPTOM_CONFUSION = "symptom_confusion"
+    SYMPTOM_HEADACHE = "symptom_headache"
 
 
 class DisplayUnits(StrEnum):

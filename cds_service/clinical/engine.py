@@ -7,7 +7,9 @@ and return at most one finding per code.
 
 from __future__ import annotations
 
+import re
 from collections.abc import Iterable
+from dataclasses import replace
 
 from cds_service.clinical.context import Analyte, ClinicalContext, RejectedResult
 from cds_service.clinical.correction import correction_finding
@@ -86,10 +88,30 @@ def _relevant_rejections(ctx: ClinicalContext, others: list[Finding]) -> list[Re
     return [r for r in ctx.rejected if r.analyte in (None, Analyte.SODIUM)]
 
 
+#: Advice that urges raising sodium: it must not stand beside a correction-rate card.
+_RAISING = re.compile(
+    r"urgent treatment|treat(ed)? urgently|raise (the )?(serum )?sodium|raising (serum )?sodium",
+    re.IGNORECASE,
+)
+_FOLLOW_CORRECTION = (
+    "Sodium has risen faster than the correction limit: the correction card leads; do not "
+    "push sodium up now."
+)
+
+
+def _one_plan(f: Finding) -> Finding:
+    """The finding without lines that urge raising sodium (the correction card leads)."""
+    cautions = tuple(c for c in f.cautions if not _RAISING.search(c))
+    steps = tuple(s for s in f.next_steps if not _RAISING.search(s))
+    if (cautions, steps) == (f.cautions, f.next_steps):
+        return f
+    return replace(f, cautions=(*cautions, _FOLLOW_CORRECTION), next_steps=steps)
+
+
 def _assemble(ctx: ClinicalContext, th: Thresholds, found: list[Finding]) -> list[Finding]:
     correction = correction_finding(ctx, th)
     if correction is not None:
-        found = [correction, *found]
+        found = [correction, *(_one_plan(f) for f in found)]
     implausible = _implausible(_relevant_rejections(ctx, found))
     if implausible is not None:
         found.append(implausible)

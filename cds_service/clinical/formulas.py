@@ -17,14 +17,47 @@ def _positive(name: str, value: float) -> None:
 
 
 def calculated_osmolality(
-    sodium: float, glucose_mg_dl: float, urea_nitrogen_mg_dl: float, th: Thresholds
+    sodium: float,
+    glucose_mg_dl: float,
+    urea_nitrogen_mg_dl: float,
+    th: Thresholds,
+    ethanol_mg_dl: float = 0.0,
 ) -> float:
-    """2·Na + glucose/18 + BUN/2.8 (conventional units; Dorwart & Chalmers 1975)."""
+    """2·Na + glucose/18 + BUN/2.8 (conventional units; Dorwart & Chalmers 1975), plus
+    ethanol/4.6 when a measured ethanol is given (Nguyen 2020)."""
     return (
         2 * sodium
         + glucose_mg_dl / th.glucose_mg_dl_per_mmol_l
-        + urea_nitrogen_mg_dl / th.urea_nitrogen_mg_dl_per_mmol_l
+        + urea_osmoles(urea_nitrogen_mg_dl, th)
+        + ethanol_osmoles(ethanol_mg_dl, th)
     )
+
+
+def urea_osmoles(urea_nitrogen_mg_dl: float, th: Thresholds) -> float:
+    """mOsm/kg that urea contributes: urea nitrogen (mg/dL) / 2.8 (Dorwart & Chalmers 1975)."""
+    return urea_nitrogen_mg_dl / th.urea_nitrogen_mg_dl_per_mmol_l
+
+
+def ethanol_osmoles(ethanol_mg_dl: float, th: Thresholds) -> float:
+    """mOsm/kg that ethanol contributes: ethanol (mg/dL) / 4.6 (Nguyen 2020; molar mass 46)."""
+    return ethanol_mg_dl / th.ethanol_mg_dl_per_mmol_l
+
+
+def effective_measured_osmolality(
+    measured: float,
+    urea_nitrogen_mg_dl: float | None,
+    ethanol_mg_dl: float | None,
+    th: Thresholds,
+) -> float:
+    """Measured osmolality minus its ineffective part (urea, ethanol: they cross cell membranes
+    and hold no water outside cells; Spasovski 2014 section 7.1). A part not measured is not
+    subtracted, so the result is never below the true effective osmolality."""
+    out = measured
+    if urea_nitrogen_mg_dl is not None:
+        out -= urea_osmoles(urea_nitrogen_mg_dl, th)
+    if ethanol_mg_dl is not None:
+        out -= ethanol_osmoles(ethanol_mg_dl, th)
+    return out
 
 
 def calculated_osmolality_si(sodium: float, glucose_mmol_l: float, urea_mmol_l: float) -> float:
@@ -137,3 +170,23 @@ def fractional_excretion(
     _positive("serum value", serum_x)
     _positive("urine creatinine", urine_creatinine)
     return urine_x * serum_creatinine / (serum_x * urine_creatinine) * 100.0
+
+
+def egfr_ckd_epi_2021(
+    creatinine_mg_dl: float, age_years: float, female: bool, th: Thresholds
+) -> float:
+    """CKD-EPI 2021 creatinine equation without race (Inker 2021), mL/min/1.73 m²:
+    142 × min(Scr/κ, 1)^α × max(Scr/κ, 1)^−1.200 × 0.9938^age × 1.012 [female],
+    κ 0.7 / 0.9 and α −0.241 / −0.302 for female / male."""
+    _positive("creatinine", creatinine_mg_dl)
+    _positive("age", age_years)
+    kappa = th.ckd_epi_2021_kappa_female if female else th.ckd_epi_2021_kappa_male
+    alpha = th.ckd_epi_2021_alpha_female if female else th.ckd_epi_2021_alpha_male
+    ratio = creatinine_mg_dl / kappa
+    egfr = (
+        th.ckd_epi_2021_constant
+        * min(ratio, 1.0) ** -alpha
+        * max(ratio, 1.0) ** -th.ckd_epi_2021_upper_exponent
+        * th.ckd_epi_2021_age_base**age_years
+    )
+    return egfr * th.ckd_epi_2021_female_factor if female else egfr

@@ -3,6 +3,9 @@
 SIADH essential criteria follow Schwartz & Bartter 1957 as restated by the 2014 European
 guideline (Spasovski 2014); each is met, not met or unknown from what the record shows.
 Clinical euvolaemia is a bedside judgement: the record only gives hints, never a verdict.
+Thyroid: only overt hypothyroidism (raised TSH with low free T4) excludes SIADH; adrenal: only a
+morning cortisol (by the draw time) is read; renal: eGFR (laboratory or CKD-EPI 2021) as well as
+problem-list codes.
 """
 
 from __future__ import annotations
@@ -12,9 +15,10 @@ from datetime import timedelta
 from enum import StrEnum
 
 from cds_service.clinical import formulas
-from cds_service.clinical.context import Analyte, ClinicalContext, ConditionCategory
+from cds_service.clinical.chemistry import Chemistry
+from cds_service.clinical.context import Analyte, ClinicalContext, ConditionCategory, LabResult
 from cds_service.clinical.drugs import DrugMatch, DrugRole, active_matches
-from cds_service.clinical.notes import num
+from cds_service.clinical.notes import num, qty
 from cds_service.clinical.thresholds import Thresholds
 
 
@@ -78,42 +82,153 @@ def _value(ctx: ClinicalContext, analyte: Analyte) -> float | None:
     return None if result is None else result.value
 
 
-def _criterion_5(ctx: ClinicalContext, th: Thresholds) -> Criterion:
-    name = "no adrenal, thyroid, pituitary or renal insufficiency"
-    recorded = [
-        label
-        for cat, label in (
-            (ConditionCategory.HYPOTHYROIDISM, "hypothyroidism"),
-            (ConditionCategory.ADRENAL_INSUFFICIENCY, "adrenal insufficiency"),
-            (ConditionCategory.ADVANCED_KIDNEY_DISEASE, "advanced kidney disease"),
-        )
-        if ctx.has_condition(cat)
-    ]
-    if recorded:
-        return Criterion(name, Status.NOT_MET, f"{', '.join(recorded)} recorded")
-    tsh, cortisol = _value(ctx, Analyte.TSH), _value(ctx, Analyte.CORTISOL)
-    if tsh is not None and tsh > th.tsh_upper_normal:
-        return Criterion(name, Status.NOT_MET, f"TSH {num(tsh, 2)} m[IU]/L is raised")
-    if tsh is None or cortisol is None:
-        missing = " and ".join(n for n, v in (("TSH", tsh), ("cortisol", cortisol)) if v is None)
-        return Criterion(name, Status.UNKNOWN, f"{missing} not measured")
-    if cortisol <= th.cortisol_adrenal_unlikely_above:
-        return Criterion(
-            name,
-            Status.UNKNOWN,
-            f"cortisol {num(cortisol)} ug/dL does not exclude adrenal insufficiency",
-        )
-    return Criterion(
-        name,
-        Status.MET,
-        f"TSH {num(tsh, 2)} m[IU]/L, cortisol {num(cortisol)} ug/dL; "
-        "pituitary as far as these show",
+#: Conditions that can cause SIADH (Spasovski 2014, table of causes of SIAD), as card text.
+SIADH_TRIGGERS: dict[ConditionCategory, str] = {
+    ConditionCategory.MALIGNANCY: "malignancy",
+    ConditionCategory.CNS_DISORDER: "central nervous system disorder",
+    ConditionCategory.PULMONARY_DISEASE: "pulmonary disease",
+    ConditionCategory.NAUSEA: "nausea",
+    ConditionCategory.PAIN: "pain",
+    ConditionCategory.POSTOPERATIVE: "postoperative state",
+}
+
+
+def siadh_triggers(ctx: ClinicalContext) -> list[str]:
+    """SIADH triggers the problem list shows: 'pulmonary disease (Pneumonia, Condition/x)'."""
+    out = []
+    for category, label in SIADH_TRIGGERS.items():
+        entries = [c for c in ctx.conditions if c.category == category]
+        if entries:
+            shown = ", ".join(f"{e.display}, {e.source_id}" for e in entries[:2])
+            out.append(f"{label} ({shown})")
+    return out
+
+
+def is_morning(result: LabResult, th: Thresholds) -> bool:
+    """Drawn within the morning window, by the clock time of the draw as recorded."""
+    t = result.time
+    hour = t.hour + t.minute / 60
+    return th.cortisol_morning_from_hour <= hour < th.cortisol_morning_until_hour
+
+
+def random_cortisol_line(c: Chemistry) -> str | None:
+    """A cortisol drawn outside the morning window is not read as a morning value. (Whether a
+    card appears never depends on the clock hour: sample timelines are moved in time.)"""
+    cortisol = c.lab(Analyte.CORTISOL)
+    if cortisol is None or is_morning(cortisol, c.th):
+        return None
+    return (
+        f"The cortisol on record was drawn at {cortisol.time:%H:%M} (clock time as recorded), "
+        f"outside the morning window {num(c.th.cortisol_morning_from_hour)}:00-"
+        f"{num(c.th.cortisol_morning_until_hour)}:00: a random cortisol is not read as a "
+        "morning value and neither confirms nor excludes adrenal insufficiency; a morning "
+        "cortisol settles it."
     )
 
 
-def siadh_essential(ctx: ClinicalContext, th: Thresholds) -> tuple[Criterion, ...]:
+def _thyroid(ctx: ClinicalContext, th: Thresholds) -> tuple[Status, str]:
+    tsh, ft4 = _value(ctx, Analyte.TSH), _value(ctx, Analyte.FREE_T4)
+    d = ctx.display_units
+    recorded = ctx.has_condition(ConditionCategory.HYPOTHYROIDISM)
+    if (
+        ft4 is not None
+        and ft4 < th.free_t4_lower_normal
+        and (tsh is None or tsh <= th.tsh_upper_normal)
+    ):
+        return Status.NOT_MET, (
+            f"free T4 {qty(ft4, Analyte.FREE_T4, d)} low without a raised TSH: central "
+            "(pituitary) hypothyroidism possible"
+        )
+    if tsh is None:
+        if recorded:
+            return (
+                Status.UNKNOWN,
+                "hypothyroidism recorded, TSH not measured: overt or not is unknown",
+            )
+        return Status.UNKNOWN, "TSH not measured"
+    tsh_text = f"TSH {qty(tsh, Analyte.TSH, d)}"
+    if tsh <= th.tsh_upper_normal:
+        return Status.MET, f"{tsh_text} not raised"
+    if ft4 is None:
+        return Status.UNKNOWN, (
+            f"{tsh_text} raised, free T4 not measured: only overt hypothyroidism (low free T4) "
+            "excludes SIADH"
+        )
+    ft4_text = f"free T4 {qty(ft4, Analyte.FREE_T4, d)}"
+    if ft4 < th.free_t4_lower_normal:
+        return Status.NOT_MET, f"overt hypothyroidism: {tsh_text} raised with {ft4_text} low"
+    return Status.MET, (
+        f"{tsh_text} raised with {ft4_text} normal: subclinical, does not exclude SIADH"
+    )
+
+
+def _adrenal(ctx: ClinicalContext, th: Thresholds) -> tuple[Status, str]:
+    if ctx.has_condition(ConditionCategory.ADRENAL_INSUFFICIENCY):
+        return Status.NOT_MET, "adrenal insufficiency recorded"
+    result = ctx.current.get(Analyte.CORTISOL)
+    if result is None:
+        return Status.UNKNOWN, "cortisol not measured"
+    text = qty(result.value, Analyte.CORTISOL, ctx.display_units)
+    if not is_morning(result, th):
+        return Status.UNKNOWN, (
+            f"cortisol {text} drawn at {result.time:%H:%M} is not a morning value (window "
+            f"{num(th.cortisol_morning_from_hour)}:00-{num(th.cortisol_morning_until_hour)}:00 "
+            "by the draw time as recorded): it neither confirms nor excludes adrenal insufficiency"
+        )
+    if result.value <= th.cortisol_adrenal_unlikely_above:
+        return Status.UNKNOWN, (f"morning cortisol {text} does not exclude adrenal insufficiency")
+    return Status.MET, f"morning cortisol {text}"
+
+
+def _renal(c: Chemistry) -> tuple[Status, str]:
+    if c.ctx.has_condition(ConditionCategory.ADVANCED_KIDNEY_DISEASE):
+        return Status.NOT_MET, "advanced kidney disease recorded"
+    if c.egfr is None:
+        return Status.UNKNOWN, c.egfr_note
+    text = f"eGFR {num(c.egfr, 0)} mL/min/1.73 m² ({c.egfr_note})"
+    if c.egfr < c.th.renal_insufficiency_egfr_below:
+        return Status.NOT_MET, (
+            f"{text}: renal insufficiency (below {num(c.th.renal_insufficiency_egfr_below)})"
+        )
+    return Status.MET, text
+
+
+def _criterion_5(c: Chemistry) -> Criterion:
+    name = "no adrenal, thyroid, pituitary or renal insufficiency"
+    parts = [_thyroid(c.ctx, c.th), _adrenal(c.ctx, c.th), _renal(c)]
+    statuses = {status for status, _ in parts}
+    if Status.NOT_MET in statuses:
+        status = Status.NOT_MET
+        shown = [text for st, text in parts if st is Status.NOT_MET]
+    else:
+        status = Status.UNKNOWN if Status.UNKNOWN in statuses else Status.MET
+        shown = [text for _, text in parts]
+        if status is Status.MET:
+            shown.append("pituitary as far as these show")
+    return Criterion(name, status, "; ".join(shown))
+
+
+def _criterion_1(c: Chemistry) -> Criterion:
+    th = c.th
+    name = f"effective osmolality < {num(th.tonicity_hypotonic_below)} mOsm/kg"
+    effective, measured = c.call.effective_osmolality, c.measured_osmolality
+    if effective is None or measured is None:
+        return Criterion(name, Status.UNKNOWN, "not measured")
+    shown = f"effective {num(effective)} mOsm/kg (measured {num(measured)})"
+    if c.call.residual:
+        return Criterion(
+            name,
+            Status.UNKNOWN,
+            f"{shown} includes glucose; the glucose-corrected sodium "
+            f"{num(c.corrected_hillier or 0)} mmol/L is still low",
+        )
+    ok = effective < th.tonicity_hypotonic_below
+    return Criterion(name, Status.MET if ok else Status.NOT_MET, shown)
+
+
+def siadh_essential(c: Chemistry) -> tuple[Criterion, ...]:
     """The six essential criteria, each met / not met / unknown."""
-    osm = _value(ctx, Analyte.OSMOLALITY)
+    ctx, th = c.ctx, c.th
     uosm = _value(ctx, Analyte.URINE_OSMOLALITY)
     una = _value(ctx, Analyte.URINE_SODIUM)
 
@@ -125,16 +240,11 @@ def siadh_essential(ctx: ClinicalContext, th: Thresholds) -> tuple[Criterion, ..
     diuretics = recent_diuretics(ctx)
     hints = [h for h in volume_hints(ctx) if "active" not in h]
     return (
+        _criterion_1(c),
         threshold(
-            f"effective osmolality < {num(th.tonicity_hypotonic_below)} mOsm/kg",
-            osm,
-            osm is not None and osm < th.tonicity_hypotonic_below,
-            f"measured {num(osm or 0)} mOsm/kg",
-        ),
-        threshold(
-            f"urine osmolality > {num(th.urine_osmolality_dilute_below)} mOsm/kg",
+            f"urine osmolality > {num(th.urine_osmolality_dilute_at_most)} mOsm/kg",
             uosm,
-            uosm is not None and uosm > th.urine_osmolality_dilute_below,
+            uosm is not None and uosm > th.urine_osmolality_dilute_at_most,
             f"{num(uosm or 0)} mOsm/kg",
         ),
         Criterion(
@@ -149,7 +259,7 @@ def siadh_essential(ctx: ClinicalContext, th: Thresholds) -> tuple[Criterion, ..
             una is not None and una > th.urine_sodium_low_at_most,
             f"{num(una or 0)} mmol/L",
         ),
-        _criterion_5(ctx, th),
+        _criterion_5(c),
         Criterion(
             "no recent diuretic use",
             Status.NOT_MET if diuretics else Status.MET,
@@ -158,6 +268,24 @@ def siadh_essential(ctx: ClinicalContext, th: Thresholds) -> tuple[Criterion, ..
             else "no diuretic in the medication record",
         ),
     )
+
+
+def fractional_excretions(ctx: ClinicalContext) -> dict[str, float]:
+    """FE (%) of uric acid, urea and sodium where urine and serum values and both creatinines
+    are measured: keys "uric acid", "urea", "sodium"."""
+    creat, ucreat = _value(ctx, Analyte.CREATININE), _value(ctx, Analyte.URINE_CREATININE)
+    out: dict[str, float] = {}
+    if not creat or not ucreat:
+        return out
+    for label, urine, serum in (
+        ("uric acid", Analyte.URINE_URIC_ACID, Analyte.URIC_ACID),
+        ("urea", Analyte.URINE_UREA_NITROGEN, Analyte.UREA_NITROGEN),
+        ("sodium", Analyte.URINE_SODIUM, Analyte.SODIUM),
+    ):
+        u, s = _value(ctx, urine), _value(ctx, serum)
+        if u is not None and s:
+            out[label] = formulas.fractional_excretion(u, s, ucreat, creat)
+    return out
 
 
 def siadh_supplemental(ctx: ClinicalContext, th: Thresholds) -> tuple[Criterion, ...]:
@@ -176,20 +304,21 @@ def siadh_supplemental(ctx: ClinicalContext, th: Thresholds) -> tuple[Criterion,
                     f"{num(measured)} mg/dL",
                 )
             )
-    creat, ucreat = _value(ctx, Analyte.CREATININE), _value(ctx, Analyte.URINE_CREATININE)
-    for label, urine, serum, limit in (
-        ("uric acid", Analyte.URINE_URIC_ACID, Analyte.URIC_ACID, th.siadh_fe_urate_above),
-        ("urea", Analyte.URINE_UREA_NITROGEN, Analyte.UREA_NITROGEN, th.siadh_fe_urea_above),
-    ):
-        u, s = _value(ctx, urine), _value(ctx, serum)
-        if None in (u, s, creat, ucreat) or not s or not ucreat:
-            continue
-        fe = formulas.fractional_excretion(u, s, ucreat, creat)  # type: ignore[arg-type]
+    limits = {
+        "uric acid": th.siadh_fe_urate_above,
+        "urea": th.siadh_fe_urea_above,
+        "sodium": th.siadh_fe_sodium_above,
+    }
+    diuretic = bool(recent_diuretics(ctx))
+    for label, fe in fractional_excretions(ctx).items():
+        note = (
+            "; a diuretic is active, so it is unreliable" if diuretic and label == "sodium" else ""
+        )
         out.append(
             Criterion(
-                f"fractional excretion of {label} > {num(limit)} %",
-                Status.MET if fe > limit else Status.NOT_MET,
-                f"{num(fe)} %",
+                f"fractional excretion of {label} > {num(limits[label])} %",
+                Status.MET if fe > limits[label] else Status.NOT_MET,
+                f"{num(fe, 2 if fe < 1 else 1)} %{note}",
             )
         )
     return tuple(out)

@@ -64,10 +64,19 @@ class Infusate:
     @property
     def citation(self) -> str:
         return cite(self.source, self.from_memory, self.locator)
+    balanced: bool = False
+    potassium_added: bool = False
 
     def __post_init__(self) -> None:
         if min(self.sodium, self.potassium) < 0 or self.osmolarity <= 0:
             raise ValueError(f"infusate {self.key}: negative content or no osmolarity")
+
+
+def _flag(entry: dict, where: str, name: str) -> bool:
+    value = entry.get(name, False)
+    if not isinstance(value, bool):
+        raise DataFileError(f"{_FILE}: {where} {name} must be true or false")
+    return value
 
 
 def _load(key: str, entry: object) -> Infusate:
@@ -87,6 +96,8 @@ def _load(key: str, entry: object) -> Infusate:
             source=check_source(_FILE, where, entry.get("source")),
             from_memory=require(_FILE, where, entry, "from_memory", bool),
             locator=check_locator(_FILE, where, entry),
+            balanced=_flag(entry, where, "balanced"),
+            potassium_added=_flag(entry, where, "potassium_added"),
         )
     except ValueError as exc:
         raise DataFileError(f"{_FILE}: {where}: {exc}") from None
@@ -113,6 +124,32 @@ def _alias_patterns() -> tuple[tuple[re.Pattern[str], Infusate], ...]:
 
 
 @dataclass(frozen=True, slots=True)
+class PotassiumSalts:
+    names: tuple[str, ...]
+    rxnorm: frozenset[str]
+
+    def matches(self, names: tuple[str, ...], rxnorm: tuple[str, ...], display: str) -> bool:
+        """A drafted drug is a potassium salt by RxNorm code, generic name or order text."""
+        if self.rxnorm.intersection(rxnorm):
+            return True
+        text = " ".join([*names, display]).lower()
+        return any(re.search(rf"(?<![\w]){re.escape(n)}(?![\w])", text) for n in self.names)
+
+
+@cache
+def potassium_salts() -> PotassiumSalts:
+    """The ``[potassium_salts]`` table of the data file."""
+    table = read_data_file(_FILE).get("potassium_salts")
+    where = "[potassium_salts]"
+    if not isinstance(table, dict):
+        raise DataFileError(f"{_FILE}: needs a {where} table")
+    names = require(_FILE, where, table, "names", list)
+    codes = require(_FILE, where, table, "rxnorm", list)
+    check_source(_FILE, where, table.get("source"))
+    return PotassiumSalts(tuple(str(n).lower() for n in names), frozenset(map(str, codes)))
+
+
+@dataclass(frozen=True, slots=True)
 class ResolvedFluid:
     draft: DraftFluid
     label: str
@@ -121,10 +158,21 @@ class ResolvedFluid:
     osmolarity: float
     tonicity: FluidTonicity
     basis: str  # how the composition was found
+    balanced: bool = False  # a balanced crystalloid, not saline
+    added_potassium: float = 0.0  # mmol/L of potassium chloride added (premix or order)
 
     @property
     def sodium_plus_potassium(self) -> float:
         return self.sodium + self.potassium
+
+    @property
+    def kind(self) -> str:
+        """How the fluid is described on a card (never "saline" for a balanced solution)."""
+        if self.balanced:
+            return "balanced crystalloid"
+        if self.sodium == 0:
+            return "electrolyte-free water"
+        return "sodium chloride solution"
 
 
 def sodium_from_percent(nacl_percent: float) -> float:
@@ -144,6 +192,8 @@ def _from_table(draft: DraftFluid, inf: Infusate, basis: str, th: Thresholds) ->
         inf.osmolarity + 2 * extra_k,
         fluid_tonicity(inf.sodium + k, th),
         basis,
+        balanced=inf.balanced,
+        added_potassium=extra_k + (inf.potassium if inf.potassium_added else 0.0),
     )
 
 
@@ -168,6 +218,7 @@ def resolve(draft: DraftFluid, th: Thresholds) -> ResolvedFluid | None:
             2 * (na + k) + dextrose_mosm,
             fluid_tonicity(na + k, th),
             "stated composition",
+            added_potassium=k,
         )
     lowered = draft.display.lower()
     for pattern, inf in _alias_patterns():

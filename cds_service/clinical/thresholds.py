@@ -64,7 +64,7 @@ class Thresholds:
     waugh_intercept: float
     waugh_lipid_factor: float
     waugh_protein_factor: float
-    urine_osmolality_dilute_below: float
+    urine_osmolality_dilute_at_most: float
     urine_sodium_low_at_most: float
     urine_osmolality_minimal: float
     solute_load_typical: float
@@ -96,9 +96,48 @@ class Thresholds:
     bolus_target_rise: float
     infusate_hypotonic_below: float
     infusate_hypertonic_above: float
+    # Added with the clinical pathway revision (classification).
+    ethanol_mg_dl_per_mmol_l: float
+    siadh_fe_sodium_above: float
+    free_t4_lower_normal: float
+    cortisol_morning_from_hour: float
+    cortisol_morning_until_hour: float
+    renal_insufficiency_egfr_below: float
+    ckd_epi_2021_constant: float
+    ckd_epi_2021_kappa_female: float
+    ckd_epi_2021_kappa_male: float
+    ckd_epi_2021_alpha_female: float
+    ckd_epi_2021_alpha_male: float
+    ckd_epi_2021_upper_exponent: float
+    ckd_epi_2021_age_base: float
+    ckd_epi_2021_female_factor: float
+    correction_limit_first_24h_europe: float
+    correction_limit_next_24h_europe: float
+    correction_goal_24h_low: float
+    correction_goal_24h_high: float
+    correction_goal_24h_high_risk: float
+    rise_confirm_within_hours: float
+    bolus_repeats: float
+    bolus_recheck_minutes: float
+    hypertonic_stop_sodium: float
+    acute_fall_hypertonic_above: float
+    moderate_symptoms_aim_rise_24h: float
+    relowering_free_water_ml_per_kg: float
+    relowering_free_water_minutes: float
+    desmopressin_relowering_ug: float
+    desmopressin_min_interval_hours: float
+    #: Which correction limits apply (configuration ``[clinical] correction_guideline``):
+    #: "stricter" (both guidelines, the stricter wins), "europe" or "us". Not a number, so
+    #: it is not an entry of thresholds.toml.
+    correction_guideline: str = "stricter"
 
     def __post_init__(self) -> None:
-        for f in fields(self):
+        if self.correction_guideline not in CORRECTION_GUIDELINES:
+            raise ValueError(
+                f"correction_guideline must be one of {', '.join(CORRECTION_GUIDELINES)}, "
+                f"not {self.correction_guideline!r}"
+            )
+        for f in _numeric_fields():
             v = getattr(self, f.name)
             if isinstance(v, bool) or not isinstance(v, int | float) or not math.isfinite(v):
                 raise ValueError(f"threshold {f.name} must be a finite number, not {v!r}")
@@ -111,8 +150,14 @@ class Thresholds:
         _ordered(self, "correction_limit_24h", "correction_limit_48h")
         _ordered(self, "correction_limit_24h_high_risk", "correction_limit_48h_high_risk")
         _ordered(self, "furst_ratio_low", "furst_ratio_high")
+        _ordered(self, "correction_goal_24h_low", "correction_goal_24h_high_risk")
+        _ordered(self, "correction_goal_24h_low", "correction_goal_24h_high")
+        _ordered(self, "correction_limit_next_24h_europe", "correction_limit_first_24h_europe")
         _ordered(self, "infusate_hypotonic_below", "infusate_hypertonic_above")
         _ordered(self, "solute_load_low", "solute_load_typical")
+        _ordered(self, "cortisol_morning_from_hour", "cortisol_morning_until_hour")
+        if self.cortisol_morning_until_hour > 24:
+            raise ValueError("threshold cortisol_morning_until_hour must be at most 24")
         for name in (
             "tbw_fraction_adult_male",
             "tbw_fraction_adult_female",
@@ -126,6 +171,11 @@ class Thresholds:
             "urea_nitrogen_mg_dl_per_mmol_l",
             "urine_osmolality_minimal",
             "correction_limit_24h_high_risk",
+            "ethanol_mg_dl_per_mmol_l",
+            "ckd_epi_2021_constant",
+            "ckd_epi_2021_kappa_female",
+            "ckd_epi_2021_kappa_male",
+            "ckd_epi_2021_age_base",
         ):
             if getattr(self, name) <= 0:
                 raise ValueError(f"threshold {name} must be positive")
@@ -136,6 +186,15 @@ class Thresholds:
 
     def cite(self, key: str) -> str:
         return self.entry(key).citation
+
+
+#: Values of ``correction_guideline``: which guideline's correction limits apply.
+CORRECTION_GUIDELINES = ("stricter", "europe", "us")
+_TEXT_KEYS = frozenset({"correction_guideline"})
+
+
+def _numeric_fields() -> tuple:
+    return tuple(f for f in fields(Thresholds) if f.name not in _TEXT_KEYS)
 
 
 def _ordered(th: Thresholds, *names: str) -> None:
@@ -166,7 +225,7 @@ def threshold_entries() -> Mapping[str, ThresholdEntry]:
                 note=entry.get("note", ""),
                 locator=check_locator(_FILE, where, entry),
             )
-    names = {f.name for f in fields(Thresholds)}
+    names = {f.name for f in _numeric_fields()}
     if set(out) != names:
         raise DataFileError(
             f"{_FILE}: missing {sorted(names - set(out))}, unknown {sorted(set(out) - names)}"
@@ -189,11 +248,23 @@ def load_thresholds(overrides: Mapping[str, float] | None = None) -> Thresholds:
     if not overrides:
         return base
     known = threshold_entries()
-    unknown = sorted(set(overrides) - set(known))
+    unknown = sorted(set(overrides) - set(known) - _TEXT_KEYS)
     if unknown:
         raise ValueError(f"unknown clinical threshold(s): {', '.join(unknown)}")
-    values = {
-        k: float(v) if isinstance(v, int) and not isinstance(v, bool) else v
-        for k, v in overrides.items()
-    }
+    values = {k: v if k in _TEXT_KEYS else _number(k, v) for k, v in overrides.items()}
     return replace(base, **values)
+
+
+def _number(key: str, v: object) -> object:
+    """An override as a float: ints and numeric strings (environment variables) convert;
+    anything else is left for ``Thresholds`` to refuse with its message."""
+    if isinstance(v, bool):
+        return v
+    if isinstance(v, int):
+        return float(v)
+    if isinstance(v, str):
+        try:
+            return float(v)
+        except ValueError:
+            raise ValueError(f"clinical threshold {key} must be a number, not {v!r}") from None
+    return v

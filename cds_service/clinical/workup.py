@@ -10,6 +10,7 @@ from cds_service.clinical.chemistry import Chemistry, chemistry
 from cds_service.clinical.context import Analyte, ClinicalContext
 from cds_service.clinical.drugs import DrugRole, active_matches
 from cds_service.clinical.findings import Finding, FindingCode, InputUsed, Urgency, ValueName
+from cds_service.clinical.hypotonic import random_cortisol_line
 from cds_service.clinical.notes import CAUTION, num, shorten, unique, used, value
 from cds_service.clinical.pathway import Tonicity
 from cds_service.clinical.thresholds import Thresholds
@@ -53,29 +54,51 @@ def drug_associated_finding(c: Chemistry) -> Finding | None:
     )
 
 
+def _endocrine_gaps(c: Chemistry) -> list[tuple[str, str, str]]:
+    """(analyte, test name, what stays open) for each endocrine test still needed."""
+    th = c.th
+    gaps = []
+    tsh = c.val(Analyte.TSH)
+    if tsh is None:
+        gaps.append(("tsh", "TSH", "hypothyroidism"))
+    elif tsh > th.tsh_upper_normal and c.val(Analyte.FREE_T4) is None:
+        gaps.append(("free_t4", "free T4", "overt hypothyroidism (TSH is raised)"))
+    if c.lab(Analyte.CORTISOL) is None:
+        gaps.append(("cortisol", "morning cortisol", "adrenal insufficiency"))
+    return gaps
+
+
 def endocrine_finding(c: Chemistry) -> Finding | None:
-    missing = c.missing(Analyte.TSH, Analyte.CORTISOL)
-    if not missing:
+    gaps = _endocrine_gaps(c)
+    if not gaps:
         return None
-    words = " and ".join("TSH" if m == "tsh" else "cortisol" for m in missing)
-    verb = "were" if len(missing) > 1 else "was"
+    tests = " and ".join(name for _, name, _ in gaps)
+    open_ = " and ".join(what for _, _, what in gaps)
+    verb = "are" if len(gaps) > 1 else "is"
+    details = [
+        "Hypothyroidism and adrenal insufficiency must be excluded before SIADH can be "
+        "diagnosed (Schwartz & Bartter 1957; 2014 European guideline); only overt "
+        "hypothyroidism (raised TSH with low free T4) excludes it on thyroid grounds.",
+    ]
+    random = random_cortisol_line(c)
+    if random:
+        details.append(random)
     return Finding(
         code=FindingCode.ENDOCRINE_SCREEN,
         urgency=Urgency.INFO,
-        summary=(
-            f"Hypotonic hyponatremia: {words} {verb} not measured; hypothyroidism and "
-            "adrenal insufficiency are not yet excluded"
+        summary=shorten(
+            f"Hypotonic hyponatremia: {tests} {verb} still needed; {open_} not yet excluded", 139
         ),
-        details=(
-            "Hypothyroidism and adrenal insufficiency must be excluded before SIADH can "
-            "be diagnosed (Schwartz & Bartter 1957; 2014 European guideline).",
-            "A morning cortisol is the usual first test.",
-        ),
+        details=tuple(details),
         values=(value(V.SERUM_SODIUM, c.sodium.value),),
-        inputs=c.inputs(Analyte.TSH, Analyte.CORTISOL),
-        sources=(c.th.cite("tonicity_hypotonic_below"), c.th.cite("tsh_upper_normal")),
-        missing=missing,
-        next_steps=(f"Order {words}.",),
+        inputs=c.inputs(Analyte.TSH, Analyte.FREE_T4, Analyte.CORTISOL),
+        sources=(
+            c.th.cite("tonicity_hypotonic_below"),
+            c.th.cite("tsh_upper_normal"),
+            c.th.cite("cortisol_morning_from_hour"),
+        ),
+        missing=tuple(dict.fromkeys(a for a, _, _ in gaps)),
+        next_steps=(f"Order {tests}.",),
         cautions=(CAUTION,),
     )
 

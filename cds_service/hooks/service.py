@@ -17,7 +17,7 @@ import logging
 import re
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
-from datetime import datetime
+from datetime import UTC, datetime, timedelta
 from typing import Any
 
 import httpx
@@ -26,10 +26,11 @@ from pydantic import ValidationError
 from cds_service import logs, ops
 from cds_service.alerts import live as alerts
 from cds_service.clinical import engine
+from cds_service.clinical.context import Analyte
 from cds_service.clinical.findings import Finding, FindingCode
 from cds_service.config import Settings
 from cds_service.errors import UserError
-from cds_service.fhir import build_context
+from cds_service.fhir import build_context, timeline
 from cds_service.fhir.builders import OrderContext
 from cds_service.gcpause import collector_paused
 from cds_service.hooks import snapshots
@@ -117,6 +118,43 @@ def trend_card(findings: list[Finding]) -> Finding | None:
     return next((by_code[c] for c in TREND_OWNERS if c in by_code), None)
 
 
+def no_cards_reason(ctx: Any, settings: Settings, thresholds: Any) -> str | None:
+    """Why a call gives no cards although the record has a low sodium or no usable sodium,
+    in one line (None when the sodium is simply not low: quiet by design)."""
+    series = ctx.series.get(Analyte.SODIUM, ())
+    current = ctx.current.get(Analyte.SODIUM)
+    if current is None:
+        if not series:
+            rejected = [r for r in ctx.rejected if r.analyte is Analyte.SODIUM]
+            if rejected:
+                return (
+                    f"no usable sodium: {len(rejected)} sodium result(s) not used "
+                    f"({rejected[0].reason})"
+                )
+            return (
+                "no usable sodium at the evaluation time "
+                f"{ctx.now.astimezone(UTC):%Y-%m-%dT%H:%M:%SZ}: no sodium result Tonicity reads, "
+                "or all dated after that time (`tonicity inspect --now ...` shows how each "
+                "resource was understood)"
+            )
+        newest = series[-1]
+        window = timeline.lookback(Analyte.SODIUM, settings.ingest)
+        hours = window.total_seconds() / 3600
+        at = newest.time.astimezone(UTC)
+        return (
+            f"the newest sodium ({newest.value:g} mmol/L, taken {at:%Y-%m-%dT%H:%M:%SZ}) is "
+            f"older than the sodium lookback of {hours:g} h at the evaluation time "
+            f"{ctx.now.astimezone(UTC):%Y-%m-%dT%H:%M:%SZ}; to evaluate the record as of that "
+            f"result use --now {(at + timedelta(hours=1)):%Y-%m-%dT%H:%M:%SZ}"
+        )
+    if current.value < thresholds.sodium_lower_normal:
+        return (
+            f"the sodium {current.value:g} mmol/L is low, but no rule of this hook applies "
+            "(for order hooks: no drafted order Tonicity checks)"
+        )
+    return None
+
+
 class HookError(Exception):
     """A caller's mistake or missing data: answered with ``status`` and an OperationOutcome."""
 
@@ -148,6 +186,8 @@ class Outcome:
     unavailable: dict[str, str] = field(default_factory=dict)
     #: Finding codes kept back by the alert policy (suppressed or silent), for the audit line.
     kept_back: list[str] = field(default_factory=list)
+    #: Why there are no cards, when the record has a low or no usable sodium (one line).
+    no_cards: str | None = None
 
 
 def resolve_service(service_id: str | None, hook: object) -> Service:
@@ -476,6 +516,7 @@ async def evaluate(
         codes=[c.source.topic.code for c in cards if c.source.topic],
         unavailable=dict(state.unavailable),
         kept_back=[d.code for d in gate.kept_back],
+        no_cards=None if cards else no_cards_reason(ctx, settings, thresholds),
     )
 
 

@@ -52,7 +52,9 @@ def test_48h_limit(th: Thresholds) -> None:
     status = surveil(ctx, th)
     assert status is not None and not status.exceeded_24h and status.exceeded_48h
     finding = correction_finding(ctx, th)
-    assert finding is not None and "48 h" in finding.summary
+    assert finding is not None and any("within 48 h" in d for d in finding.details)
+    us = correction_finding(ctx, load_thresholds({"correction_guideline": "us"}))
+    assert us is not None and "within 48 h" in us.summary and "18 mmol/L limit" in us.summary
 
 
 def test_high_risk_sodium_lowers_the_limit(th: Thresholds) -> None:

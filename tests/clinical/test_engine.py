@@ -90,6 +90,8 @@ def test_hypotonic_siadh_pattern(th: Thresholds) -> None:
 
 
 def test_diuretic_and_endocrine_results_change_the_criteria(th: Thresholds) -> None:
+    # Creatinine 0.8 mg/dL, woman of 70: CKD-EPI 2021 (Inker 2021) eGFR about 79, not renal
+    # insufficiency; cortisol drawn 08:00, a morning value.
     ctx = make_ctx(
         {
             A.SODIUM: 128,
@@ -98,6 +100,7 @@ def test_diuretic_and_endocrine_results_change_the_criteria(th: Thresholds) -> N
             A.URINE_SODIUM: 55,
             A.TSH: 1.8,
             A.CORTISOL: 19,
+            A.CREATININE: 0.8,
         },
         meds=[("hydrochlorothiazide", "active")],
     )
@@ -148,17 +151,24 @@ def test_osmolal_gap(th: Thresholds) -> None:
 
 
 def test_dilute_urine_and_low_urine_sodium(th: Thresholds) -> None:
-    # Spasovski 2014 (from memory): urine osm <= 100 -> relative excess water intake;
-    # urine Na <= 30 -> low effective arterial blood volume.
+    # Spasovski 2014 section 7.2: urine osm <= 100 -> relative excess water intake, and urine
+    # sodium is then not interpreted; urine Na <= 30 with urine osm > 100 -> low effective
+    # arterial volume.
     ctx = make_ctx(
         {A.SODIUM: 127, A.OSMOLALITY: 258, A.URINE_OSMOLALITY: 70, A.URINE_SODIUM: 12},
         conditions=[ConditionCategory.HEART_FAILURE],
     )
     found = by_code(evaluate_workup(ctx, th))
-    assert {C.DILUTE_URINE, C.LOW_URINE_SODIUM} <= set(found)
-    assert C.SIADH_PATTERN not in found
+    assert C.DILUTE_URINE in found
+    assert C.LOW_URINE_SODIUM not in found and C.SIADH_PATTERN not in found
     # Berl 2008 (from memory): 250 mOsm/day at 50 mOsm/kg allows only 5 L/day.
     assert any("= 5 L/day" in d for d in found[C.DILUTE_URINE].details)
+    ctx = make_ctx(
+        {A.SODIUM: 127, A.OSMOLALITY: 258, A.URINE_OSMOLALITY: 350, A.URINE_SODIUM: 12},
+        conditions=[ConditionCategory.HEART_FAILURE],
+    )
+    found = by_code(evaluate_workup(ctx, th))
+    assert C.DILUTE_URINE not in found
     assert any("heart failure" in d for d in found[C.LOW_URINE_SODIUM].details)
 
 
@@ -268,7 +278,11 @@ def test_hypertonic_saline_adrogue_madias_example(th: Thresholds) -> None:
     assert v[V.CORRECTION_LIMIT_24H] == 10
     # 40 mL/h x 24 h = 0.96 L -> +16.5 mmol/L, above the limit.
     assert any("+16.5" in c for c in f.cautions)
-    assert any("150 mL of 3% saline over 20 min" in d for d in f.details)
+    # Verbalis 2013: goal 8 (top of 4-8) is offered, the limit shown beside it: 8 / 17.2.
+    assert v[V.CORRECTION_GOAL_24H] == 8
+    assert v[V.VOLUME_TO_GOAL_24H] == pytest.approx(0.47, abs=0.01)
+    # Spasovski 2014 section 8: no coded symptoms and no documented acute fall.
+    assert any("does not advise hypertonic saline" in d for d in f.details)
     assert f.remove_draft is None
 
 

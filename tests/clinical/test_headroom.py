@@ -65,9 +65,9 @@ def test_a_used_up_limit_says_so_and_offers_no_volume(th: Thresholds) -> None:
         sex=Sex.MALE,
         weight=70,
         fluids=[HTS],
-        series={Analyte.SODIUM: sodium_series([(20, 112), (1, 124)])},
+        series={Analyte.SODIUM: sodium_series([(20, 112), (1, 122)])},
     )
-    f = _hts_card(ctx, th)
+    f = _hts_card(ctx, th)  # exactly the 10 mmol/L limit used: not above it, nothing left
     assert "already used" in f.summary
     assert {x.name: x.value for x in f.values}[ValueName.MAX_VOLUME_24H] == 0
     assert any("24-h limit already used" in line for line in f.formulas)
@@ -89,6 +89,20 @@ def test_volume_never_grows_as_more_of_the_limit_is_used(start: float, rise: flo
             age=50, sex=Sex.MALE, weight=70, fluids=[HTS], series={Analyte.SODIUM: series}
         )
         v = {x.name: x.value for x in _hts_card(ctx, th).values}
-        return float(v[ValueName.MAX_VOLUME_24H])
+        return float(v.get(ValueName.MAX_VOLUME_24H, 0.0))  # above the limit: none offered
 
     assert volume(rise) <= volume(0) + 1e-9
+
+
+def test_above_the_limit_hypertonic_saline_is_against_the_plan(th: Thresholds) -> None:
+    # Spasovski 2014 section 8.5: above the limit, stop the active treatment and re-lower.
+    ctx = make_ctx(
+        age=60,
+        sex=Sex.MALE,
+        weight=70,
+        fluids=[HTS],
+        series={Analyte.SODIUM: sodium_series([(20, 112), (1, 123)])},
+    )
+    f = _hts_card(ctx, th)
+    assert "against re-lowering" in f.summary and f.remove_draft == HTS.resource_id
+    assert ValueName.MAX_VOLUME_24H not in {x.name for x in f.values}

@@ -230,3 +230,33 @@ def test_echoed_identifiers_are_capped(trial: Any) -> None:
     ):
         assert_clean(r, "hardening")
         assert len(r.json()["issue"][0]["diagnostics"]) <= 500, r.json()
+
+
+# ---- feedback audience -------------------------------------------------------------------------
+
+
+@pytest.mark.parametrize(
+    ("aud", "status"),
+    [
+        (f"{ENDPOINT}/feedback", 200),  # the feedback URL (CDS Hooks 2.0)
+        (ENDPOINT, 200),  # the service URL, which clients commonly reuse
+        (f"{BASE}/cds-services/sodium-order-sign", 401),  # another service's URL
+        (f"{BASE}/cds-services", 401),
+    ],
+)
+def test_feedback_accepts_its_service_url_as_audience(
+    tmp_path: Path, aud: str, status: int
+) -> None:
+    key = new_key()
+    config = settings_for(tmp_path, key).model_copy(
+        update={"storage": StorageSettings(url=f"sqlite:///{tmp_path / 'a.db'}")}
+    )
+    body = {
+        "feedback": [{"card": "c-1", "outcome": "accepted", "outcomeTimestamp": NOW.isoformat()}]
+    }
+    with TestClient(create_app(config), raise_server_exceptions=False) as client:
+        client.app.state.authenticator._now = lambda: NOW
+        token = sign(key, claims(aud=aud))
+        r = client.post(FEEDBACK, json=body, headers={"Authorization": f"Bearer {token}"})
+    assert_clean(r, "hardening")
+    assert r.status_code == status, r.text
