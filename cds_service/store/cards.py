@@ -13,6 +13,7 @@ from dataclasses import dataclass
 from datetime import datetime
 
 from sqlalchemy import ColumnElement, and_, insert, literal, null, or_, select, union_all
+from sqlalchemy.engine import Connection
 from sqlalchemy.orm import Session
 
 from cds_service.store.database import Store, as_utc
@@ -129,7 +130,9 @@ class Recent:
     silent: bool = False  # a silent card that would have been shown
 
 
-def recent(session: Session, scope: Scope, *, since: datetime, now: datetime) -> list[Recent]:
+def recent(
+    session: Session | Connection, scope: Scope, *, since: datetime, now: datetime
+) -> list[Recent]:
     """The cards shown in ``scope`` since ``since`` and the overrides still in force at
     ``now``: one statement (a UNION ALL of two index lookups), so one round trip per call.
     Replay traffic is never history."""

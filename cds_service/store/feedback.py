@@ -119,7 +119,8 @@ def parse_feedback(payload: object) -> FeedbackBody:
     except ValidationError as exc:
         err = exc.errors(include_url=False, include_input=False)[0]
         where = _location(err.get("loc", ()))
-        raise UserError(f"invalid feedback: {where}: {err.get('msg', 'invalid')}") from None
+        message = str(err.get("msg", "invalid")).removeprefix("Value error, ")
+        raise UserError(f"invalid feedback: {where}: {message}") from None
 
 
 @dataclass(frozen=True, slots=True)

@@ -249,10 +249,25 @@ def test_feedback_accepts_its_service_url_as_audience(
     config = settings_for(tmp_path, key).model_copy(
         update={"storage": StorageSettings(url=f"sqlite:///{tmp_path / 'a.db'}")}
     )
+    from cds_service.store.cards import CardLogRow, log_cards
+
+    # Feedback is checked against the card log: a card this service returned, with its one
+    # suggestion (CDS Hooks 2.0.1: acceptedSuggestions is required for "accepted").
     body = {
         "feedback": [{"card": "c-1", "outcome": "overridden", "outcomeTimestamp": NOW.isoformat()}]
     }
     with TestClient(create_app(config), raise_server_exceptions=False) as client:
+        row = CardLogRow(
+            "c-1",
+            "sodium-workup",
+            "siadh-pattern",
+            "info",
+            None,
+            None,
+            NOW,
+            suggestion_ids=("s-1",),
+        )
+        log_cards(client.app.state.store, [row])
         client.app.state.authenticator._now = lambda: NOW
         token = sign(key, claims(aud=aud))
         r = client.post(FEEDBACK, json=body, headers={"Authorization": f"Bearer {token}"})
