@@ -30,6 +30,7 @@ from starlette.concurrency import run_in_threadpool
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
 from cds_service import logs, ops
+from cds_service.alerts import live as alerts
 from cds_service.config import Settings
 from cds_service.errors import UserError
 from cds_service.hooks.auth import Authenticator, AuthError
@@ -173,7 +174,10 @@ def create_app(settings: Settings) -> FastAPI:
         title="Tonicity",
         description="Hyponatremia work-up and sodium order safety as CDS Hooks 2.0 services.",
         lifespan=lifespan,
+        docs_url=None,  # served below from the package, not from a CDN
+        redoc_url=None,
     )
+    _install_docs(app)
     app.state.settings = settings
     # CDS Hooks 2.0 (Security and Safety, CORS): browser-based CDS clients need CORS. Any
     # origin may ask, without credentials: calls authenticate with a bearer JWT the client
@@ -191,6 +195,41 @@ def create_app(settings: Settings) -> FastAPI:
     _install_routes(app, settings)
     _include_routers(app)
     return app
+
+
+#: Swagger UI's files, from the swagger-ui-bundle package (Apache-2.0), so that ``/docs``
+#: works on a hospital network without internet access.
+_DOCS_ASSETS = {
+    "swagger-ui-bundle.js": "text/javascript; charset=utf-8",
+    "swagger-ui.css": "text/css; charset=utf-8",
+}
+
+
+def _install_docs(app: FastAPI) -> None:
+    from fastapi.openapi.docs import get_swagger_ui_html
+    from fastapi.responses import FileResponse, HTMLResponse
+    from swagger_ui_bundle import swagger_ui_path
+
+    @app.get("/docs", include_in_schema=False)
+    async def docs() -> HTMLResponse:
+        return get_swagger_ui_html(
+            openapi_url=app.openapi_url or "/openapi.json",
+            title="Tonicity - API",
+            swagger_js_url="/docs-assets/swagger-ui-bundle.js",
+            swagger_css_url="/docs-assets/swagger-ui.css",
+            swagger_favicon_url="/static/favicon.svg",
+        )
+
+    @app.get("/docs-assets/{name}", include_in_schema=False)
+    async def docs_asset(name: str) -> Any:
+        media = _DOCS_ASSETS.get(name)
+        if media is None:
+            return operation_outcome(404, "no such documentation asset")
+        return FileResponse(
+            f"{swagger_ui_path}/{name}",
+            media_type=media,
+            headers={"Cache-Control": "public, max-age=86400"},
+        )
 
 
 def _http_client(settings: Settings) -> httpx.AsyncClient:
@@ -240,12 +279,15 @@ def _install_error_handlers(app: FastAPI) -> None:
         return operation_outcome(500, "internal error; the request was not evaluated")
 
 
-async def _authenticate(request: Request, settings: Settings) -> Any:
-    """The calling client, or a 401 OperationOutcome as an exception."""
+async def _authenticate(request: Request, settings: Settings, *also_accept: str) -> Any:
+    """The calling client, or a 401 OperationOutcome as an exception. The token's ``aud`` is
+    this endpoint's public URL (or one of ``also_accept``)."""
     authenticator = request.app.state.authenticator
     endpoint = f"{settings.server.public_base_url}{request.url.path}"
     try:
-        return await authenticator.authenticate(request.headers.get("authorization"), endpoint)
+        return await authenticator.authenticate(
+            request.headers.get("authorization"), endpoint, *also_accept
+        )
     except AuthError as exc:
         raise _Unauthorized(exc.reason or "authentication failed") from None
 
@@ -257,6 +299,10 @@ class _Unauthorized(Exception):
 
 
 def _install_routes(app: FastAPI, settings: Settings) -> None:
+    # The alert policy's settings, checked now (a refused configuration never serves).
+    alert_settings = alerts.settings_for(settings, SERVICES)
+    app.state.alert_settings = alert_settings
+
     @app.exception_handler(_Unauthorized)
     async def _unauthorized(_request: Request, exc: _Unauthorized) -> JSONResponse:
         return operation_outcome(
@@ -266,7 +312,7 @@ def _install_routes(app: FastAPI, settings: Settings) -> None:
     @app.get("/cds-services")
     async def list_services(request: Request) -> JSONResponse:
         await _authenticate(request, settings)
-        return JSONResponse(discovery())
+        return JSONResponse(alerts.annotate_discovery(discovery(), alert_settings))
 
     @app.post("/cds-services/{service_id}")
     async def call_service(service_id: str, request: Request) -> JSONResponse:
@@ -301,7 +347,9 @@ def _install_routes(app: FastAPI, settings: Settings) -> None:
 
     @app.post("/cds-services/{service_id}/feedback")
     async def feedback(service_id: str, request: Request) -> JSONResponse:
-        caller = await _authenticate(request, settings)
+        # CDS clients commonly sign feedback for the service URL they called: accepted too.
+        service_url = f"{settings.server.public_base_url}/cds-services/{service_id}"
+        caller = await _authenticate(request, settings, service_url)
         if service_id not in SERVICES:
             raise HookError(404, f"no CDS service with id {echo(service_id)}")
         require_json_media_type(request)
@@ -314,6 +362,7 @@ def _install_routes(app: FastAPI, settings: Settings) -> None:
                     parse_body(raw),
                     getattr(caller, "issuer", None),
                     datetime.now(UTC),
+                    alerts.quiet_maker(alert_settings),
                 )
             )
         except UserError as exc:
@@ -333,6 +382,9 @@ async def _evaluate_off_loop(
     large = declared is not None and declared > server.large_call_bytes
     if large and not gate.try_enter():
         raise Busy  # refused before its body is read
+    replay_call = request.headers.get(alerts.REPLAY_HEADER)  # tonicity replay's call id
+    if replay_call is not None and not alerts.REPLAY_CALL.fullmatch(replay_call):
+        raise HookError(400, f"{alerts.REPLAY_HEADER} must be 1-64 letters, digits or -")
     try:
         raw = await read_body(request, server.max_body_bytes)
         if not large and len(raw) > server.large_call_bytes:  # sent without Content-Length
@@ -353,6 +405,7 @@ async def _evaluate_off_loop(
                     service_id=service_id,
                     store=state.store,
                     authenticator=state.authenticator,
+                    replay_call=replay_call,
                 )
 
         return await state.pool.run(work, large=large)

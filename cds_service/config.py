@@ -11,7 +11,7 @@ import re
 import tomllib
 from datetime import UTC, tzinfo
 from pathlib import Path
-from typing import Any
+from typing import Any, Literal
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 from pydantic import (
@@ -58,6 +58,7 @@ class ServerSettings(_Section):
     @property
     def tz(self) -> tzinfo:
         return UTC if self.time_zone == "UTC" else ZoneInfo(self.time_zone)
+
     #: Threads that parse, ingest and evaluate hook calls off the event loop.
     evaluation_threads: int = Field(4, ge=2, le=64)
     #: A hook call whose body is larger counts as large (see max_large_calls).
@@ -72,6 +73,9 @@ class ServerSettings(_Section):
     def _strip_slash(cls, v: str) -> str:
         return v.rstrip("/")
 
+    #: Serve ``/metrics`` on this port only (same address), for a scraper on an internal
+    #: network; none: on the service's own port, as every other route.
+    metrics_port: int | None = Field(None, ge=1, le=65535)
     #: Origins (``https://host[:port]``) whose pages may show the trend page in a frame; empty:
     #: no page may frame it (CSP ``frame-ancestors 'none'``, ``X-Frame-Options: DENY``).
     trend_frame_ancestors: list[str] = Field(default_factory=list)
@@ -89,6 +93,8 @@ class ServerSettings(_Section):
 
     @model_validator(mode="after")
     def _room_for_small_calls(self) -> ServerSettings:
+        if self.metrics_port is not None and self.metrics_port == self.port:
+            raise ValueError("server.metrics_port must differ from server.port")
         if self.max_large_calls >= self.evaluation_threads:
             raise ValueError(
                 "server.max_large_calls must be below server.evaluation_threads, so that "
@@ -167,6 +173,9 @@ class FhirSettings(_Section):
 
 class LoggingSettings(_Section):
     level: str = "INFO"
+    #: ``json`` (one object per line, for collectors), ``text`` (for people), or ``auto``:
+    #: text when standard error is a terminal, JSON otherwise.
+    format: Literal["auto", "json", "text"] = "auto"
     patient_id_salt: str = "change-me-in-production"
 
 
@@ -176,6 +185,29 @@ class IngestSettings(_Section):
     default_lookback_hours: float = Field(72.0, gt=0)
     lookback_hours: dict[str, float] = Field(default_factory=dict)  # per Analyte value
     pairing_hours: float = Field(2.0, gt=0)  # glucose/urea paired with the sodium draw
+
+
+class FindingAlertSettings(_Section):
+    """``[alerts.findings.<finding code>]``: one finding's alert settings."""
+
+    mode: Literal["show", "silent", "off"] = "show"
+    window_hours: float | None = Field(None, gt=0, le=24 * 31)
+    raise_to: Literal["warning", "critical"] | None = None
+    lower_to: Literal["info", "warning"] | None = None
+
+
+class AlertsConfig(_Section):
+    """``[alerts]``: repeat suppression, per-finding settings and silent go-live
+    (``cds_service/alerts``; finding codes and service ids are checked there)."""
+
+    suppression: bool = True
+    scope: Literal["patient", "patient-and-user"] = "patient"
+    silent_services: list[str] = Field(default_factory=list)
+    findings: dict[str, FindingAlertSettings] = Field(default_factory=dict)
+    managed_quiet_hours: float | None = Field(None, gt=0, le=24 * 7)
+    critical_quiet_max_hours: float | None = Field(None, gt=0, le=24)
+    unsafe_allow_silencing_critical: bool = False
+    quality_page: bool = True
 
 
 class Settings(BaseSettings):
@@ -189,6 +221,7 @@ class Settings(BaseSettings):
     fhir: FhirSettings = Field(default_factory=FhirSettings)
     logging: LoggingSettings = Field(default_factory=LoggingSettings)
     ingest: IngestSettings = Field(default_factory=IngestSettings)
+    alerts: AlertsConfig = Field(default_factory=AlertsConfig)
     #: Overrides of clinical thresholds by key (see clinical/data/thresholds.toml), and
     #: ``correction_guideline`` ("stricter", "europe" or "us").
     clinical: dict[str, float | str] = Field(default_factory=dict)

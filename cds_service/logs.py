@@ -91,15 +91,38 @@ class JsonFormatter(logging.Formatter):
         return scrub(json.dumps(data, default=str, ensure_ascii=False))
 
 
+class TextFormatter(logging.Formatter):
+    """One readable line per record for a person at a terminal: time, level, logger, event,
+    then the structured fields as ``key=value`` (masked as in the JSON lines)."""
+
+    def format(self, record: logging.LogRecord) -> str:
+        when = datetime.fromtimestamp(record.created, UTC).strftime("%H:%M:%S")
+        parts = [f"{when} {record.levelname:<7} {record.name}: {record.getMessage()}"]
+        fields = getattr(record, "fields", None)
+        if isinstance(fields, dict):
+            parts += [f"{k}={v}" for k, v in fields.items()]
+        rid = get_request_id()
+        if rid:
+            parts.append(f"request_id={rid}")
+        if record.exc_info and record.exc_info[0] is not None:
+            frame = traceback.extract_tb(record.exc_info[2])[-1:]
+            where = f" at {frame[0].filename}:{frame[0].lineno}" if frame else ""
+            parts.append(f"exception={record.exc_info[0].__name__}{where}")
+        return scrub(" ".join(parts))
+
+
 def configure_logging(settings: Settings) -> None:
-    """Send every log record (ours, uvicorn's, libraries') as JSON lines to stderr."""
+    """Send every log record (ours, uvicorn's, libraries') to stderr: JSON lines, or text
+    lines when ``logging.format`` says so (``auto``: text on a terminal)."""
     level = settings.logging.level.upper()
     if level not in _LEVELS:
         raise UserError(
             f"logging.level {settings.logging.level!r} is not one of {', '.join(_LEVELS)}"
         )
     handler = logging.StreamHandler(sys.stderr)
-    handler.setFormatter(JsonFormatter())
+    fmt = getattr(settings.logging, "format", "json")
+    text = fmt == "text" or (fmt == "auto" and sys.stderr.isatty())
+    handler.setFormatter(TextFormatter() if text else JsonFormatter())
     root = logging.getLogger()
     for old in list(root.handlers):
         root.removeHandler(old)
@@ -113,6 +136,7 @@ def configure_logging(settings: Settings) -> None:
         lib.setLevel(logging.NOTSET)  # follow the configured root level, not uvicorn's own
     # httpx logs each request URL with its query at INFO: FHIR queries carry patient ids.
     logging.getLogger("httpx").setLevel(logging.WARNING)
+    logging.getLogger("alembic").setLevel(logging.WARNING)  # its per-start notes say nothing
     if settings.logging.patient_id_salt == DEFAULT_SALT and settings.auth.required:
         log_event(
             logging.getLogger("tonicity"),

@@ -131,9 +131,29 @@ def readyz(request: Request) -> JSONResponse:
     problems = readiness_problems(request.app.state)
     if problems:
         return JSONResponse(_outcome(problems), status_code=503, media_type="application/fhir+json")
-    return JSONResponse({"status": "ready"})
+    body = {"status": "ready"}
+    alert_settings = getattr(request.app.state, "alert_settings", None)
+    if alert_settings is not None:  # which alert settings are live (cds_service/alerts)
+        body["alertSettingsDigest"] = alert_settings.digest
+    return JSONResponse(body)
 
 
 @router.get("/metrics", include_in_schema=False)
-def metrics() -> Response:
+def metrics(request: Request) -> Response:
+    settings = getattr(request.app.state, "settings", None)
+    if settings is not None and settings.server.metrics_port is not None:
+        return JSONResponse(  # served on the internal metrics port only
+            _outcome(["not here: /metrics is served on server.metrics_port"]),
+            status_code=404,
+            media_type="application/fhir+json",
+        )
     return Response(generate_latest(REGISTRY), media_type=CONTENT_TYPE_LATEST)
+
+
+def start_metrics_server(host: str, port: int) -> Any:
+    """``/metrics`` (this process's registry) on its own port, in a thread; returns the
+    server (``shutdown()`` stops it). OSError when the port cannot be bound."""
+    from prometheus_client import start_http_server
+
+    server, _thread = start_http_server(port, addr=host, registry=REGISTRY)
+    return server

@@ -10,6 +10,7 @@ no network is used: what the request does not carry is "not available".
 from __future__ import annotations
 
 import argparse
+import asyncio
 import json
 import sys
 from typing import Any
@@ -60,7 +61,7 @@ def build_body(args: argparse.Namespace) -> dict[str, Any]:
 def run(args: argparse.Namespace) -> int:
     from cds_service.clinical.thresholds import load_thresholds
     from cds_service.config import load_settings
-    from cds_service.hooks.service import HookError, evaluate_request_sync
+    from cds_service.hooks.service import HookError, evaluate
 
     settings = load_settings(args.config)
     now = parse_now(args.now)
@@ -70,13 +71,15 @@ def run(args: argparse.Namespace) -> int:
     except ValueError as exc:
         raise UserError(f"invalid clinical thresholds in the configuration: {exc}") from None
     try:
-        response = evaluate_request_sync(body, settings=settings, thresholds=thresholds, now=now)
+        outcome = asyncio.run(evaluate(body, settings=settings, thresholds=thresholds, now=now))
     except HookError as exc:
         raise UserError(f"{exc.status}: {exc.message}") from None
     except Exception as exc:  # never a traceback: say what failed, in one line
         raise UserError(
             f"could not evaluate {args.path} ({type(exc).__name__}: {exc})".replace("\n", " ")
         ) from None
-    json.dump(response, sys.stdout, indent=2, ensure_ascii=False)
+    json.dump(outcome.response, sys.stdout, indent=2, ensure_ascii=False)
     sys.stdout.write("\n")
+    if outcome.no_cards:  # stdout stays exactly the response body
+        sys.stderr.write(f"tonicity evaluate: no cards: {outcome.no_cards}\n")
     return 0

@@ -82,22 +82,54 @@ def table(report: Any) -> str:
     return "\n".join(out)
 
 
+def in_use(ctx: Any) -> dict[str, dict[str, Any]]:
+    """Per analyte, the result the work-up uses at ``ctx.now`` (the latest within its
+    lookback, glucose and urea paired with the sodium draw): what ``evaluate`` computes with."""
+    return {
+        str(analyte): {
+            "resource": r.source_id,
+            "value": r.value,
+            "unit": r.unit,
+            "time": r.time.isoformat(),
+        }
+        for analyte, r in sorted(ctx.current.items())
+    }
+
+
 def run(args: argparse.Namespace) -> int:
-    from cds_service.config import IngestSettings, load_settings
+    from cds_service.clinical.thresholds import load_thresholds
+    from cds_service.config import load_settings
     from cds_service.fhir import build_context
+    from cds_service.hooks.service import no_cards_reason
 
     resources, drafts, pid, selections = split_input(read_json_file(args.bundle))
-    settings = load_settings(args.config).ingest if args.config else IngestSettings()
+    settings = load_settings(args.config)
     result = build_context(
         resources,
         now=parse_now(args.now),
-        settings=settings,
+        settings=settings.ingest,
         patient_id=args.patient or pid,
         draft_orders=drafts,
         selections=selections,
     )
+    ctx = result.context
+    current = in_use(ctx)
+    note = None
+    if "sodium" not in current:
+        try:
+            note = no_cards_reason(ctx, settings, load_thresholds(settings.clinical))
+        except ValueError as exc:
+            raise UserError(f"invalid clinical thresholds in the configuration: {exc}") from None
     if args.json:
-        print(json.dumps(result.report.to_dict(), indent=2))
+        out = {**result.report.to_dict(), "now": ctx.now.isoformat(), "in_use": current}
+        if note:
+            out["no_sodium"] = note
+        print(json.dumps(out, indent=2))
     else:
         print(table(result.report))
+        print(f"\nIn use at {ctx.now:%Y-%m-%d %H:%M %Z} (latest within each lookback):")
+        for analyte, r in current.items():
+            print(f"  {analyte}: {r['value']:g} {r['unit']}  {r['resource']}")
+        if note:
+            print(f"  no sodium in use: {note}")
     return 0

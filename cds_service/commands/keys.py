@@ -16,6 +16,7 @@ import hashlib
 import json
 import os
 import re
+import shlex
 from pathlib import Path
 from typing import Any
 
@@ -31,7 +32,8 @@ GENERATABLE = (
     "PS512",
     "EdDSA",
 )
-_KID_SHAPE = re.compile(r"^[A-Za-z0-9._-]{1,64}$")
+#: A key id that is safe as a file name and a command-line word: never a leading '-'.
+_KID_SHAPE = re.compile(r"^[A-Za-z0-9._][A-Za-z0-9._-]{0,63}$")
 #: RFC 7638 section 3.2: the members that make up a key's thumbprint, per key type.
 _THUMBPRINT_MEMBERS = {
     "EC": ("crv", "kty", "x", "y"),
@@ -105,9 +107,10 @@ def _generate(args: argparse.Namespace) -> int:
     from cds_service.errors import UserError
 
     if args.kid is not None and not _KID_SHAPE.match(args.kid):
-        raise UserError("--kid may hold letters, digits, '.', '_' and '-' (at most 64)")
-    key = new_private_key(args.alg)
-    jwk = public_jwk(key, args.alg, args.kid)
+        raise UserError(
+            "--kid may hold letters, digits, '.', '_' and '-' (at most 64), not starting with '-'"
+        )
+    key, jwk = _key_with_usable_kid(args.alg, args.kid)
     out = Path(args.out_dir)
     private_path, jwks_path = out / f"{jwk['kid']}.private.pem", out / f"{jwk['kid']}.jwks.json"
     pem = key.private_bytes(
@@ -126,11 +129,21 @@ def _generate(args: argparse.Namespace) -> int:
     print(f"private key (keep secret, mode 0600): {private_path}")
     print(f"public JWKS (register as jwks_file):  {jwks_path}")
     print(f"kid: {jwk['kid']}  alg: {args.alg}")
-    print(
-        f"test token: tonicity keys sign --key {private_path} --kid {jwk['kid']} "
-        f"--alg {args.alg} --issuer ISSUER --aud ENDPOINT_URL"
-    )
+    command = ["tonicity", "keys", "sign", "--key", str(private_path), "--kid", jwk["kid"]]
+    command += ["--alg", args.alg, "--issuer", "ISSUER", "--aud", "ENDPOINT_URL"]
+    print(f"test token: {shlex.join(command)}")
     return 0
+
+
+def _key_with_usable_kid(alg: str, kid: str | None) -> tuple[Any, dict[str, Any]]:
+    """A new key and its public JWK. Without ``kid`` the id is the RFC 7638 thumbprint,
+    base64url, which starts with '-' for one key in 64: such a key is replaced by a new one,
+    so the id stays the thumbprint and never reads as an option on a command line."""
+    while True:
+        key = new_private_key(alg)
+        jwk = public_jwk(key, alg, kid)
+        if _KID_SHAPE.match(jwk["kid"]):
+            return key, jwk
 
 
 def _write_private(path: Path, pem: bytes) -> None:

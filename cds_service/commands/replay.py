@@ -15,6 +15,15 @@ With ``--key`` every call carries a fresh JWT (new ``jti``) signed with that pri
 or JWK), ``iss`` = ``--issuer`` and ``aud`` = the endpoint URL, as CDS Hooks 2.0 asks.
 Samples that are Bundles (not hook requests) are posted as the ``patient-view`` request the
 service's own Bundle helper builds; without that helper they are skipped and reported.
+
+Every call carries ``X-Tonicity-Replay: <call id>``: the deployment logs it as replay traffic
+(never suppressed as a repeat, left out of the quality figures unless asked for). When
+discovery says a service is silent, or some of its findings are silent or off
+(``extension["tonicity.alerts"]``), a silent finding is expected in the card log, not in the
+response: replay reads what the call logged from ``/quality/calls/<call id>`` (same
+authentication) and checks the manifest against cards shown plus findings logged silent. When
+that cannot be read, the sample fails saying so; a finding switched off is reported, not
+checked.
 """
 
 from __future__ import annotations
@@ -24,6 +33,7 @@ import json
 import re
 import sys
 import time
+import uuid
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from pathlib import Path
@@ -80,6 +90,7 @@ class Outcome:
     latency_ms: float | None = None
     problems: list[str] = field(default_factory=list)
     skipped: str | None = None
+    notes: list[str] = field(default_factory=list)
 
     @property
     def ok(self) -> bool:
@@ -219,10 +230,54 @@ def _card_codes(body: Any) -> list[str] | None:
     return codes
 
 
-def check(outcome: Outcome) -> None:
-    """Compare the cards with the manifest; record every difference as a problem."""
+REPLAY_HEADER = "X-Tonicity-Replay"
+ALERTS_EXTENSION = "tonicity.alerts"
+
+
+@dataclass(frozen=True, slots=True)
+class Quiet:
+    """What discovery says a service keeps back: the whole service, or some findings."""
+
+    silent_service: bool = False
+    silent: frozenset[str] = frozenset()
+    off: frozenset[str] = frozenset()
+
+    @property
+    def any(self) -> bool:
+        return self.silent_service or bool(self.silent) or bool(self.off)
+
+    @classmethod
+    def of(cls, service: dict[str, Any]) -> Quiet:
+        info = (service.get("extension") or {}).get(ALERTS_EXTENSION)
+        if not isinstance(info, dict):
+            return cls()
+        return cls(
+            silent_service=info.get("silent") is True,
+            silent=frozenset(c for c in info.get("silentFindings", []) if isinstance(c, str)),
+            off=frozenset(c for c in info.get("offFindings", []) if isinstance(c, str)),
+        )
+
+
+def check(
+    outcome: Outcome, quiet: Quiet | None = None, logged_silent: set[str] = frozenset()
+) -> None:
+    """Compare the cards with the manifest; record every difference as a problem. With a
+    ``quiet`` service, findings logged silent count as produced, and none may be a card."""
     exp = outcome.expectation
     got = set(outcome.codes)
+    if quiet is not None and quiet.any:
+        if quiet.silent_service and outcome.codes:
+            outcome.problems.append("silent service returned cards")
+        for code in sorted(got & quiet.silent):
+            outcome.problems.append(f"{code} is silent but was returned")
+        got |= set(logged_silent)
+        for code in sorted(exp.must & quiet.off):
+            outcome.notes.append(f"{code} is off here: not checked")
+        exp = Expectation(
+            exp.file, exp.hook, exp.service, exp.now, exp.must - quiet.off, exp.must_not
+        )
+        if logged_silent:
+            outcome.notes.append("silent in the log: " + ",".join(sorted(logged_silent)))
     for code in sorted(exp.must - got):
         outcome.problems.append(f"missing {code}")
     for code in sorted(exp.must_not & got):
@@ -239,10 +294,12 @@ def replay_one(
     exp: Expectation,
     signer: Signer | None,
     shift: bool,
+    quiet: Quiet | None = None,
 ) -> Outcome:
     import httpx
 
     outcome = Outcome(exp)
+    call_id = uuid.uuid4().hex
     body, skipped = _load_request(folder, exp)
     if body is None:
         outcome.skipped = skipped
@@ -250,7 +307,11 @@ def replay_one(
     if shift:
         body = shift_times(body, datetime.now(UTC) - exp.now)
     url = f"{base_url}/cds-services/{exp.service}"
-    headers = {"Content-Type": "application/json", "Accept": "application/json"}
+    headers = {
+        "Content-Type": "application/json",
+        "Accept": "application/json",
+        REPLAY_HEADER: call_id,
+    }
     if signer is not None:
         headers["Authorization"] = f"Bearer {signer.token(url)}"
     started = time.perf_counter()
@@ -273,8 +334,42 @@ def replay_one(
         outcome.problems.append("response has no 'cards' array")
         return outcome
     outcome.codes = codes
-    check(outcome)
+    logged: set[str] = set()
+    if quiet is not None and quiet.any:
+        logged_or_why = _logged_silent(client, base_url, call_id, signer)
+        if isinstance(logged_or_why, str):
+            outcome.problems.append(f"cannot check the silent findings: {logged_or_why}")
+            return outcome
+        logged = logged_or_why
+    check(outcome, quiet, logged)
     return outcome
+
+
+def _logged_silent(
+    client: Any, base_url: str, call_id: str, signer: Signer | None
+) -> set[str] | str:
+    """Finding codes the call logged as silent, or why they cannot be read."""
+    import httpx
+
+    url = f"{base_url}/quality/calls/{call_id}"
+    headers = {"Accept": "application/json"}
+    if signer is not None:
+        headers["Authorization"] = f"Bearer {signer.token(url)}"
+    try:
+        response = client.get(url, headers=headers)
+    except httpx.HTTPError as exc:
+        return f"{url}: {type(exc).__name__}"
+    if response.status_code != 200:
+        try:
+            why = _diagnostics(response.json())
+        except ValueError:
+            why = "no OperationOutcome"
+        return f"{url} answered HTTP {response.status_code}: {why}"
+    try:
+        decisions = response.json()["decisions"]
+        return {d["code"] for d in decisions if d.get("action") == "silent"}
+    except (ValueError, KeyError, TypeError, AttributeError):
+        return f"{url} did not answer with the call's decisions"
 
 
 def _diagnostics(payload: Any) -> str:
@@ -285,8 +380,9 @@ def _diagnostics(payload: Any) -> str:
     return "no OperationOutcome"
 
 
-def _probe(client: Any, base_url: str, signer: Signer | None) -> set[str]:
-    """Service ids the deployment lists; UserError (one line) when it cannot be reached."""
+def _probe(client: Any, base_url: str, signer: Signer | None) -> dict[str, Quiet]:
+    """Service ids the deployment lists, with what each keeps back; UserError (one line)
+    when it cannot be reached."""
     import httpx
 
     url = f"{base_url}/cds-services"
@@ -299,7 +395,7 @@ def _probe(client: Any, base_url: str, signer: Signer | None) -> set[str]:
         raise UserError(f"{base_url}/cds-services answered HTTP {response.status_code}")
     try:
         services = response.json().get("services", [])
-        return {s["id"] for s in services if isinstance(s, dict) and "id" in s}
+        return {s["id"]: Quiet.of(s) for s in services if isinstance(s, dict) and "id" in s}
     except (ValueError, AttributeError, TypeError):
         raise UserError(f"{base_url}/cds-services is not a CDS Hooks discovery document") from None
 
@@ -309,6 +405,8 @@ def format_table(outcomes: list[Outcome]) -> str:
     rows = [header]
     for o in outcomes:
         result = f"skipped: {o.skipped}" if o.skipped else "ok" if o.ok else "; ".join(o.problems)
+        if o.notes:
+            result += f" ({'; '.join(o.notes)})"
         rows.append(
             (
                 o.expectation.file,
@@ -348,7 +446,13 @@ def run(args: argparse.Namespace) -> int:
                 outcome = Outcome(exp, problems=[f"service {exp.service} not offered"])
             else:
                 outcome = replay_one(
-                    client, base_url, folder, exp, signer, shift=not args.no_time_shift
+                    client,
+                    base_url,
+                    folder,
+                    exp,
+                    signer,
+                    shift=not args.no_time_shift,
+                    quiet=listed[exp.service],
                 )
             outcomes.append(outcome)
             state = "skipped" if outcome.skipped else "ok" if outcome.ok else "MISMATCH"

@@ -10,7 +10,9 @@ authentication on any other address needs
 from __future__ import annotations
 
 import argparse
+import errno
 import ipaddress
+import socket
 import sys
 
 from cds_service.errors import UserError
@@ -106,29 +108,71 @@ def preflight(settings) -> None:  # type: ignore[no-untyped-def]
         store.close()
 
 
+def bind(host: str, port: int, what: str = "serve") -> socket.socket:
+    """A listening socket on ``host:port``, or one line saying why not (a busy port above
+    all: the usual mistake, a second ``tonicity serve``)."""
+    family = socket.AF_INET6 if ":" in host.strip("[]") else socket.AF_INET
+    sock = socket.socket(family, socket.SOCK_STREAM)
+    try:
+        sock.setsockopt(socket.SOL_SOCKET, socket.SO_REUSEADDR, 1)
+        sock.bind((host.strip("[]"), port))
+        sock.listen(2048)
+    except OSError as exc:
+        sock.close()
+        if exc.errno == errno.EADDRINUSE:
+            raise UserError(
+                f"cannot {what} on {host}:{port}: the port is in use (is another tonicity "
+                "serve running?); stop it or choose another --port"
+            ) from None
+        raise UserError(f"cannot {what} on {host}:{port}: {exc.strerror or exc}") from None
+    sock.set_inheritable(True)
+    return sock
+
+
+def url_of(host: str, port: int) -> str:
+    shown = f"[{host.strip('[]')}]" if ":" in host.strip("[]") else host
+    return f"http://{shown}:{port}"
+
+
 def run(args: argparse.Namespace) -> int:
     import uvicorn
 
+    from cds_service import logs, ops
     from cds_service.app import create_app
 
     settings, host, port = resolve(args)
     preflight(settings)
-    from cds_service import logs
-
     logs.configure_logging(settings)
-    if not settings.auth.required:
-        print(warning_text(host, port), file=sys.stderr, flush=True)
-    config = uvicorn.Config(
-        create_app(settings),
-        host=host,
-        port=port,
-        timeout_graceful_shutdown=GRACEFUL_SHUTDOWN_SECONDS,
-        log_config=None,
-        server_header=False,
-    )
-    server = uvicorn.Server(config)
+    sock = bind(host, port)
+    metrics = None
     try:
-        server.run()
-    except OSError as exc:
-        raise UserError(f"cannot serve on {host}:{port}: {exc.strerror or exc}") from None
+        if settings.server.metrics_port is not None:
+            probe = bind(host, settings.server.metrics_port, "serve /metrics")
+            probe.close()
+            metrics = ops.start_metrics_server(host, settings.server.metrics_port)
+        if not settings.auth.required:
+            print(warning_text(host, port), file=sys.stderr, flush=True)
+        base = url_of(host, port)
+        where = (
+            f"; /metrics on port {settings.server.metrics_port}"
+            if settings.server.metrics_port is not None
+            else ""
+        )
+        print(
+            f"tonicity serving on {base} - workbench: {base}/ - "
+            f"authentication {'on' if settings.auth.required else 'OFF'}{where}",
+            file=sys.stderr,
+            flush=True,
+        )
+        config = uvicorn.Config(
+            create_app(settings),
+            timeout_graceful_shutdown=GRACEFUL_SHUTDOWN_SECONDS,
+            log_config=None,
+            server_header=False,
+        )
+        uvicorn.Server(config).run(sockets=[sock])
+    finally:
+        sock.close()
+        if metrics is not None:
+            metrics.shutdown()
     return 0

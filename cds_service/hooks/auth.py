@@ -12,7 +12,8 @@ problem and never key material):
    ``jwks_url`` does (URLs fetched with a short timeout, cached for ``jwks_cache_seconds``,
    fetched again once for an unknown ``kid``, at most every ``REFETCH_MIN_SECONDS``);
 4. the signature verifies with the key of that ``kid`` and the header's algorithm;
-5. ``aud`` (string or array) holds the URL of the endpoint being invoked;
+5. ``aud`` (string or array) holds the URL of the endpoint being invoked (on a feedback
+   endpoint, its service's URL is accepted too: clients commonly reuse the service call's);
 6. ``exp`` and ``iat`` are present, and they and ``nbf`` are whole seconds between 1970 and
    the year 9999 (no NaN, no infinity, no fraction); ``exp`` not passed and ``iat`` not in
    the future, both within ``clock_skew_seconds``; ``exp - iat`` at most
@@ -165,14 +166,17 @@ class Authenticator:
         self._locks: dict[_KeySource, asyncio.Lock] = {}
         self._last_purge = -PURGE_EVERY_SECONDS
 
-    async def authenticate(self, authorization: str | None, endpoint_url: str) -> Caller:
+    async def authenticate(
+        self, authorization: str | None, endpoint_url: str, *also_accept: str
+    ) -> Caller:
         """The caller behind ``authorization`` for a call to ``endpoint_url``
-        (``{public_base_url}{path}``), or AuthError."""
+        (``{public_base_url}{path}``), or AuthError. ``also_accept``: further URLs the
+        token's ``aud`` may name instead (the service URL, on its feedback endpoint)."""
         auth = self.settings.auth
         if not auth.required:
             return Caller(None, None, None, any_fhir_server=self.settings.local_trial)
         try:
-            return await self._check(_bearer(authorization), endpoint_url)
+            return await self._check(_bearer(authorization), (endpoint_url, *also_accept))
         except AuthError as exc:
             log.info("authentication refused", extra={"fields": {"reason": exc.reason}})
             raise
@@ -180,7 +184,7 @@ class Authenticator:
     def fhir_server_allowed(self, caller: Caller, fhir_server: str) -> bool:
         return fhir_server_allowed(caller, fhir_server)
 
-    async def _check(self, token: str, endpoint_url: str) -> Caller:
+    async def _check(self, token: str, audiences: tuple[str, ...]) -> Caller:
         try:
             header = jwt.get_unverified_header(token)
             unverified = jwt.decode(token, options={"verify_signature": False})
@@ -201,13 +205,13 @@ class Authenticator:
         source = _source_for(client, header.get("jku", None))
         jwk = await self._find_key(source, kid)
         claims = _verify(token, jwk, alg)
-        return await self._accept(client, claims, endpoint_url)
+        return await self._accept(client, claims, audiences)
 
     async def _accept(
-        self, client: ClientSettings, claims: dict[str, Any], endpoint_url: str
+        self, client: ClientSettings, claims: dict[str, Any], audiences: tuple[str, ...]
     ) -> Caller:
         auth = self.settings.auth
-        if not _audience_matches(claims.get("aud"), endpoint_url):
+        if not any(_audience_matches(claims.get("aud"), url) for url in audiences):
             raise AuthError("audience mismatch")
         exp, iat = _numeric_date(claims.get("exp")), _numeric_date(claims.get("iat"))
         if exp is None or iat is None:

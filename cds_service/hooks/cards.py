@@ -268,6 +268,15 @@ def render_card(
     )
 
 
+def with_quieting_reasons(card: Card, reasons: Iterable[tuple[str, str]]) -> Card:
+    """The card with the alert policy's override reasons (``cds_service/alerts``: each one's
+    display says what choosing it hides, and for how long) before the card's own."""
+    extra = [Coding(system=OVERRIDE_SYSTEM, code=c, display=d) for c, d in reasons]
+    if not extra:
+        return card
+    return card.model_copy(update={"overrideReasons": [*extra, *card.overrideReasons]})
+
+
 _RANK = {Urgency.CRITICAL: 0, Urgency.WARNING: 1, Urgency.INFO: 2}
 
 

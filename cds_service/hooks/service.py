@@ -17,18 +17,20 @@ import logging
 import re
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
-from datetime import datetime
+from datetime import UTC, datetime, timedelta
 from typing import Any
 
 import httpx
 from pydantic import ValidationError
 
 from cds_service import logs, ops
+from cds_service.alerts import live as alerts
 from cds_service.clinical import engine
+from cds_service.clinical.context import Analyte
 from cds_service.clinical.findings import Finding, FindingCode
 from cds_service.config import Settings
 from cds_service.errors import UserError
-from cds_service.fhir import build_context
+from cds_service.fhir import build_context, timeline
 from cds_service.fhir.builders import OrderContext
 from cds_service.gcpause import collector_paused
 from cds_service.hooks import snapshots
@@ -39,7 +41,13 @@ from cds_service.hooks.access import (
     https_required,
     query_interaction,
 )
-from cds_service.hooks.cards import one_per_code, render_card, rests_on, suggested_tests
+from cds_service.hooks.cards import (
+    one_per_code,
+    render_card,
+    rests_on,
+    suggested_tests,
+    with_quieting_reasons,
+)
 from cds_service.hooks.fetch import fetch_all
 from cds_service.hooks.models import Card, HookRequest, HookResponse, Link, to_json
 from cds_service.hooks.prefetch import PrefetchState, check_prefetch
@@ -110,6 +118,43 @@ def trend_card(findings: list[Finding]) -> Finding | None:
     return next((by_code[c] for c in TREND_OWNERS if c in by_code), None)
 
 
+def no_cards_reason(ctx: Any, settings: Settings, thresholds: Any) -> str | None:
+    """Why a call gives no cards although the record has a low sodium or no usable sodium,
+    in one line (None when the sodium is simply not low: quiet by design)."""
+    series = ctx.series.get(Analyte.SODIUM, ())
+    current = ctx.current.get(Analyte.SODIUM)
+    if current is None:
+        if not series:
+            rejected = [r for r in ctx.rejected if r.analyte is Analyte.SODIUM]
+            if rejected:
+                return (
+                    f"no usable sodium: {len(rejected)} sodium result(s) not used "
+                    f"({rejected[0].reason})"
+                )
+            return (
+                "no usable sodium at the evaluation time "
+                f"{ctx.now.astimezone(UTC):%Y-%m-%dT%H:%M:%SZ}: no sodium result Tonicity reads, "
+                "or all dated after that time (`tonicity inspect --now ...` shows how each "
+                "resource was understood)"
+            )
+        newest = series[-1]
+        window = timeline.lookback(Analyte.SODIUM, settings.ingest)
+        hours = window.total_seconds() / 3600
+        at = newest.time.astimezone(UTC)
+        return (
+            f"the newest sodium ({newest.value:g} mmol/L, taken {at:%Y-%m-%dT%H:%M:%SZ}) is "
+            f"older than the sodium lookback of {hours:g} h at the evaluation time "
+            f"{ctx.now.astimezone(UTC):%Y-%m-%dT%H:%M:%SZ}; to evaluate the record as of that "
+            f"result use --now {(at + timedelta(hours=1)):%Y-%m-%dT%H:%M:%SZ}"
+        )
+    if current.value < thresholds.sodium_lower_normal:
+        return (
+            f"the sodium {current.value:g} mmol/L is low, but no rule of this hook applies "
+            "(for order hooks: no drafted order Tonicity checks)"
+        )
+    return None
+
+
 class HookError(Exception):
     """A caller's mistake or missing data: answered with ``status`` and an OperationOutcome."""
 
@@ -139,6 +184,10 @@ class Outcome:
     patient_id: str
     codes: list[str] = field(default_factory=list)
     unavailable: dict[str, str] = field(default_factory=dict)
+    #: Finding codes kept back by the alert policy (suppressed or silent), for the audit line.
+    kept_back: list[str] = field(default_factory=list)
+    #: Why there are no cards, when the record has a low or no usable sodium (one line).
+    no_cards: str | None = None
 
 
 def resolve_service(service_id: str | None, hook: object) -> Service:
@@ -363,11 +412,13 @@ async def evaluate(
     service_id: str | None = None,
     store: Any = None,
     authenticator: Any = None,
+    replay_call: str | None = None,
 ) -> Outcome:
     """Evaluate one hook call (see module doc): ``settings``, ``thresholds`` and ``now`` are
     required; ``http`` + ``authenticator`` enable fetching from the client's FHIR server;
     ``store`` enables the card log and the trend snapshot; ``service_id`` None means the
-    service answering the body's hook."""
+    service answering the body's hook; ``replay_call`` marks a call of ``tonicity replay``
+    (logged as such, never suppressed, left out of the figures)."""
     call = parse_call(body, service_id)
     state = await gather_data(call, settings, http=http, caller=caller, authenticator=authenticator)
     _require(state)
@@ -388,6 +439,21 @@ async def evaluate(
     else:
         findings = engine.evaluate_orders(ctx, thresholds)
     findings = one_per_code(findings)
+    # Alert burden (cds_service/alerts): settings, overrides and repeat suppression decide
+    # which findings become cards; the others are logged with why.
+    alert = alerts.settings_for(settings, SERVICES)
+    gate = await alerts.gate(
+        findings,
+        store=store,
+        settings=settings,
+        alert=alert,
+        service_id=call.service.id,
+        patient_id=call.patient_id,
+        user_id=call.request.context.get("userId"),
+        now=now,
+        replay_call=replay_call,
+    )
+    findings = gate.shown
     unavailable = [
         f"{KEY_NAMES.get(k, k)}: {reason}" for k, reason in sorted(state.unavailable.items())
     ]
@@ -402,29 +468,43 @@ async def evaluate(
 
     def render(links: list[Link]) -> list[Card]:
         return [
-            render_card(
-                f,
-                now=now,
-                patient_id=call.patient_id,
-                unavailable=unavailable,
-                links=links if f is trend_owner else (),
-                tests=offered,
-                partial=[
-                    f"{KEY_NAMES.get(k, k)}: {state.partial.get(k, 'first page only')}"
-                    for k in ctx.partial_reads
-                    if rests_on(f.code, k)
-                ],
-                patient_known=ctx.patient.known,
-                source_url=f"{base}/findings/{f.code.value}",
-                order_context=order,
+            with_quieting_reasons(  # override reasons of the alert policy (cds_service/alerts)
+                render_card(
+                    f,
+                    now=now,
+                    patient_id=call.patient_id,
+                    unavailable=unavailable,
+                    links=links if f is trend_owner else (),
+                    tests=offered,
+                    partial=[
+                        f"{KEY_NAMES.get(k, k)}: {state.partial.get(k, 'first page only')}"
+                        for k in ctx.partial_reads
+                        if rests_on(f.code, k)
+                    ],
+                    patient_known=ctx.patient.known,
+                    source_url=f"{base}/findings/{f.code.value}",
+                    order_context=order,
+                ),
+                alerts.reason_displays(f.urgency.value, alert),
             )
             for f, offered in zip(findings, tests, strict=True)
         ]
 
     cards = render([snapshot.link] if snapshot else [])
-    if store is not None and cards:
+    if store is not None and (cards or gate.kept_back):
         client = _client_id(caller)
-        write = functools.partial(_record, store, settings, call, client_id=client, now=now)
+        kept = alerts.kept_back_rows(gate, client_id=client, now=now, replay_call=replay_call)
+        write = functools.partial(
+            _record,
+            store,
+            settings,
+            call,
+            client_id=client,
+            now=now,
+            gate=gate,
+            kept=kept,
+            replay_call=replay_call,
+        )
         if not await _in_log_writer(store, write, cards, snapshot) and snapshot is not None:
             cards = render([])  # its snapshot is not stored: no link to it
             await _in_log_writer(store, write, cards, None)
@@ -435,6 +515,8 @@ async def evaluate(
         patient_id=call.patient_id,
         codes=[c.source.topic.code for c in cards if c.source.topic],
         unavailable=dict(state.unavailable),
+        kept_back=[d.code for d in gate.kept_back],
+        no_cards=None if cards else no_cards_reason(ctx, settings, thresholds),
     )
 
 
@@ -489,6 +571,9 @@ def _record(
     *,
     client_id: str | None,
     now: datetime,
+    gate: Any = None,
+    kept: list[CardLogRow] | None = None,
+    replay_call: str | None = None,
 ) -> bool:
     """Write the card log and the trend snapshot in one transaction, without waiting for the
     disk (``Store.log_session``). False, and logged, when it failed: the cards still reach the
@@ -498,14 +583,16 @@ def _record(
         CardLogRow(
             card_uuid=card.uuid,
             service_id=call.service.id,
-            finding_code=card.source.topic.code if card.source.topic else "unknown",
+            finding_code=(code := card.source.topic.code if card.source.topic else "unknown"),
             indicator=card.indicator,
             patient_hash=patient_hash,
             client_id=client_id,
             created_at=now,
+            **_alert_fields(gate, code, card, replay_call),
         )
         for card in cards
     ]
+    rows += kept or []
     try:
         with store.log_session() as s:
             if snapshot is not None:
@@ -517,6 +604,18 @@ def _record(
         _log.exception("card log and trend snapshot not written")
         return False
     return True
+
+
+def _alert_fields(gate: Any, code: str, card: Card, replay_call: str | None) -> dict[str, Any]:
+    """The alert-burden columns of a shown card's log row (``cds_service/alerts``)."""
+    decision = gate.decision(code) if gate is not None else None
+    return dict(
+        why=decision.why if decision else None,
+        inputs_digest=decision.inputs_digest if decision else None,
+        user_hash=gate.scope.user_hash if gate is not None and gate.scope else None,
+        replay_call=replay_call,
+        suggestion_ids=tuple(s.uuid for s in card.suggestions if s.uuid),
+    )
 
 
 def _count_cards(cards: list[Card]) -> None:

@@ -1,21 +1,25 @@
-"""The card log: one row per card returned, written at response time.
+"""The card log: one row per finding evaluated (shown, suppressed or silent), written at
+response time, and the one query repeat suppression makes per hook call.
 
-Feedback joins to it by ``card_uuid``; the feedback report counts cards shown from it.
+Feedback joins to it by ``card_uuid`` (``show`` rows only: the others were never sent); the
+feedback report and the quality view count from it.
 """
 
 from __future__ import annotations
 
+import json
 from collections.abc import Iterable
 from dataclasses import dataclass
 from datetime import datetime
 
-from sqlalchemy import insert
+from sqlalchemy import ColumnElement, and_, insert, literal, null, or_, select, union_all
 from sqlalchemy.orm import Session
 
 from cds_service.store.database import Store, as_utc
-from cds_service.store.schema import CardLog
+from cds_service.store.schema import AlertQuiet, CardLog
 
 INDICATORS = frozenset({"info", "warning", "critical"})
+ACTIONS = frozenset({"show", "suppressed", "silent"})
 
 
 @dataclass(frozen=True, slots=True)
@@ -29,6 +33,14 @@ class CardLogRow:
     patient_hash: str | None
     client_id: str | None
     created_at: datetime
+    action: str = "show"
+    why: str | None = None
+    inputs_digest: str | None = None
+    user_hash: str | None = None
+    replay_call: str | None = None
+    suggestion_ids: tuple[str, ...] = ()
+    #: A silent row that would have been shown (counts for later silent decisions only).
+    would_show: bool = False
 
     def __post_init__(self) -> None:
         for name, limit in (("card_uuid", 64), ("service_id", 100), ("finding_code", 64)):
@@ -37,8 +49,12 @@ class CardLogRow:
                 raise ValueError(f"{name} must be a non-empty string of at most {limit} characters")
         if self.indicator not in INDICATORS:
             raise ValueError(f"indicator {self.indicator!r} is not one of {sorted(INDICATORS)}")
-        if self.patient_hash is not None and len(self.patient_hash) > 64:
-            raise ValueError("patient_hash is longer than 64 characters (not a hash?)")
+        if self.action not in ACTIONS:
+            raise ValueError(f"action {self.action!r} is not one of {sorted(ACTIONS)}")
+        for name in ("patient_hash", "user_hash", "replay_call"):
+            value = getattr(self, name)
+            if value is not None and len(value) > 64:
+                raise ValueError(f"{name} is longer than 64 characters")
         if self.created_at.tzinfo is None:
             raise ValueError("created_at must carry a time zone")
 
@@ -64,8 +80,100 @@ def add_cards(session: Session, rows: Iterable[CardLogRow]) -> None:
             patient_hash=r.patient_hash,
             client_id=(r.client_id or None) and r.client_id[:300],
             created_at=as_utc(r.created_at),
+            action=r.action,
+            would_show=r.action == "silent" and r.would_show,
+            why=(r.why or None) and r.why[:300],
+            inputs_digest=r.inputs_digest,
+            user_hash=r.user_hash,
+            replay_call=r.replay_call,
+            suggestion_ids=json.dumps(list(r.suggestion_ids)) if r.suggestion_ids else None,
         )
         for r in rows
     ]
     if values:
         session.execute(insert(CardLog), values)
+
+
+@dataclass(frozen=True, slots=True)
+class Scope:
+    """Whose history a decision reads: a patient, or a patient and one user."""
+
+    patient_hash: str | None
+    service_id: str
+    user_hash: str | None = None
+    per_user: bool = False
+
+    def matches(self, table: type[CardLog] | type[AlertQuiet]) -> ColumnElement[bool]:
+        cond = and_(table.patient_hash == self.patient_hash, table.service_id == self.service_id)
+        if self.per_user:
+            user = (
+                table.user_hash.is_(None)
+                if self.user_hash is None
+                else table.user_hash == self.user_hash
+            )
+            cond = and_(cond, user)
+        return cond
+
+
+@dataclass(frozen=True, slots=True)
+class Recent:
+    """One row of :func:`recent`: a card shown (``quiet`` False) or an override in force."""
+
+    quiet: bool
+    finding_code: str
+    indicator: str
+    inputs_digest: str | None
+    at: datetime  # shown at, or override given at
+    until: datetime | None = None  # override only
+    reason_code: str | None = None  # override only
+    silent: bool = False  # a silent card that would have been shown
+
+
+def recent(session: Session, scope: Scope, *, since: datetime, now: datetime) -> list[Recent]:
+    """The cards shown in ``scope`` since ``since`` and the overrides still in force at
+    ``now``: one statement (a UNION ALL of two index lookups), so one round trip per call.
+    Replay traffic is never history."""
+    shown = select(
+        literal(False).label("quiet"),
+        CardLog.finding_code,
+        CardLog.indicator,
+        CardLog.inputs_digest,
+        CardLog.created_at.label("at"),
+        null().label("until"),
+        null().label("reason"),
+        CardLog.would_show,
+    ).where(
+        scope.matches(CardLog),
+        CardLog.created_at >= as_utc(since),
+        or_(CardLog.action == "show", CardLog.would_show.is_(True)),
+        CardLog.replay_call.is_(None),
+        CardLog.inputs_digest.is_not(None),
+    )
+    quiet = select(
+        literal(True).label("quiet"),
+        AlertQuiet.finding_code,
+        AlertQuiet.indicator,
+        AlertQuiet.inputs_digest,
+        AlertQuiet.since.label("at"),
+        AlertQuiet.until,
+        AlertQuiet.reason_code.label("reason"),
+        literal(False).label("would_show"),
+    ).where(
+        scope.matches(AlertQuiet),
+        or_(AlertQuiet.until.is_(None), AlertQuiet.until > as_utc(now)),
+    )
+    return [
+        Recent(bool(q), code, indicator, digest, _moment(at), _moment(until), reason, bool(silent))
+        for q, code, indicator, digest, at, until, reason, silent in session.execute(
+            union_all(shown, quiet)
+        )
+    ]
+
+
+def _moment(value: object) -> datetime | None:
+    """A stored date-time in UTC (SQLite returns a UNION's date-times as text)."""
+    if value is None:
+        return None
+    if isinstance(value, datetime):
+        return as_utc(value)
+    return as_utc(datetime.fromisoformat(str(value)))

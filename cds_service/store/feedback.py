@@ -12,13 +12,26 @@ Choices of ours: ``overrideReason`` only with ``overridden`` and ``acceptedSugge
 with ``accepted`` (the specification describes each for that outcome only); a timestamp without
 a zone is read as UTC (the specification says the value is in UTC), and one that UTC cannot
 hold (past the calendar's end after conversion) is a 400; at most 500 items per body.
+
+Checked against the card log, and refused (the whole body, UserError naming the item) since
+each breaks a SHALL or REQUIRED of the specification: a ``card`` this service never returned
+(``card`` is "the card.uuid from the CDS Hooks response"; cards kept back by the alert policy
+were never returned), an ``accepted`` outcome without ``acceptedSuggestions`` ("Required for
+accepted outcomes"), and a suggestion id that card never carried (``id`` is "the
+card.suggestion.uuid from the CDS Hooks response").
+
+An ``overridden`` item whose reason is one of the alert policy's quieting reasons also writes
+the quiet it gives (``quiet_for``, supplied by the caller: ``cds_service.alerts``), in the same
+transaction.
 """
 
 from __future__ import annotations
 
 import json
+from collections.abc import Callable
+from dataclasses import dataclass
 from datetime import datetime
-from typing import Literal
+from typing import Any, Literal
 
 from pydantic import (
     BaseModel,
@@ -33,9 +46,15 @@ from sqlalchemy import select
 from cds_service.errors import UserError
 from cds_service.store.database import Store, as_utc
 from cds_service.store.report import FeedbackReport, feedback_report
-from cds_service.store.schema import CardLog, Feedback
+from cds_service.store.schema import AlertQuiet, CardLog, Feedback
 
-__all__ = ["FeedbackReport", "feedback_report", "parse_feedback", "record_feedback"]
+__all__ = [
+    "FeedbackReport",
+    "IssuedCard",
+    "feedback_report",
+    "parse_feedback",
+    "record_feedback",
+]
 
 MAX_ITEMS = 500
 
@@ -82,6 +101,8 @@ class FeedbackItem(_Model):
             raise ValueError("overrideReason is only allowed with outcome 'overridden'")
         if self.acceptedSuggestions and self.outcome != "accepted":
             raise ValueError("acceptedSuggestions is only allowed with outcome 'accepted'")
+        if self.outcome == "accepted" and not self.acceptedSuggestions:
+            raise ValueError("an 'accepted' outcome requires acceptedSuggestions")
         return self
 
 
@@ -101,35 +122,126 @@ def parse_feedback(payload: object) -> FeedbackBody:
         raise UserError(f"invalid feedback: {where}: {err.get('msg', 'invalid')}") from None
 
 
+@dataclass(frozen=True, slots=True)
+class IssuedCard:
+    """What the card log knows of a card this service returned (for quiets)."""
+
+    card_uuid: str
+    service_id: str
+    finding_code: str
+    indicator: str
+    inputs_digest: str | None
+    patient_hash: str | None
+    user_hash: str | None
+
+
+#: Given the card overridden, the reason code and when: the quiet's ``(until, inputs_digest)``
+#: or None when the reason hides nothing.
+QuietFor = Callable[[IssuedCard, str, datetime], "tuple[datetime | None, str | None] | None"]
+
+
 def record_feedback(
     store: Store,
     service_id: str,
     payload: dict,
     client_id: str | None,
     now: datetime,
+    quiet_for: QuietFor | None = None,
 ) -> int:
     """Store every item of one feedback body, or none of them; returns the number stored.
 
-    An item whose card is not in the card log for ``service_id`` is kept with
-    ``unknown_card`` set, so a client's reports are never lost and the report can count them.
-    The transaction is committed before this returns.
+    Raises UserError, storing nothing, for a body that does not fit the card log (see the
+    module doc). The transaction is committed before this returns.
     """
     body = parse_feedback(payload)
     uuids = {item.card for item in body.feedback}
     received = as_utc(now)
     with store.session() as s:
-        known = set(
-            s.scalars(
-                select(CardLog.card_uuid).where(
-                    CardLog.card_uuid.in_(uuids), CardLog.service_id == service_id
+        issued = {
+            r.card_uuid: r
+            for r in s.execute(
+                select(
+                    CardLog.card_uuid,
+                    CardLog.finding_code,
+                    CardLog.indicator,
+                    CardLog.inputs_digest,
+                    CardLog.patient_hash,
+                    CardLog.user_hash,
+                    CardLog.replay_call,
+                    CardLog.suggestion_ids,
+                ).where(
+                    CardLog.card_uuid.in_(uuids),
+                    CardLog.service_id == service_id,
+                    CardLog.action == "show",
                 )
             )
-        )
-        s.add_all(
-            _row(item, service_id, client_id, received, item.card not in known)
-            for item in body.feedback
-        )
+        }
+        for n, item in enumerate(body.feedback):
+            _check_against_log(n, item, issued.get(item.card))
+        s.add_all(_row(item, service_id, client_id, received, False) for item in body.feedback)
+        if quiet_for is not None:
+            s.add_all(_quiets(body.feedback, issued, service_id, quiet_for, received))
     return len(body.feedback)
+
+
+def _check_against_log(n: int, item: FeedbackItem, row: Any) -> None:
+    if row is None:
+        raise UserError(
+            f"invalid feedback: feedback[{n}].card: this service never returned card "
+            f"{item.card[:64]!r}"
+        )
+    if item.outcome == "accepted":
+        carried = set(json.loads(row.suggestion_ids)) if row.suggestion_ids else set()
+        for s in item.acceptedSuggestions:
+            if s.id not in carried:
+                raise UserError(
+                    f"invalid feedback: feedback[{n}].acceptedSuggestions: card {item.card[:64]!r} "
+                    f"carried no suggestion {s.id[:64]!r}"
+                )
+
+
+def _quiets(
+    items: list[FeedbackItem],
+    issued: dict[str, Any],
+    service_id: str,
+    quiet_for: QuietFor,
+    received: datetime,
+) -> list[AlertQuiet]:
+    out = []
+    for item in items:
+        reason = item.overrideReason.reason if item.overrideReason else None
+        row = issued[item.card]
+        if item.outcome != "overridden" or reason is None or row.replay_call is not None:
+            continue
+        card = IssuedCard(
+            row.card_uuid,
+            service_id,
+            row.finding_code,
+            row.indicator,
+            row.inputs_digest,
+            row.patient_hash,
+            row.user_hash,
+        )
+        at = min(as_utc(item.outcomeTimestamp), received)
+        quiet = quiet_for(card, reason.code, at)
+        if quiet is None:
+            continue
+        until, digest = quiet
+        out.append(
+            AlertQuiet(
+                patient_hash=row.patient_hash,
+                user_hash=row.user_hash,
+                service_id=service_id,
+                finding_code=row.finding_code,
+                reason_code=reason.code,
+                indicator=row.indicator,
+                inputs_digest=digest,
+                since=at,
+                until=until,
+                card_uuid=row.card_uuid,
+            )
+        )
+    return out
 
 
 def _row(

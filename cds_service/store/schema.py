@@ -8,7 +8,7 @@ from __future__ import annotations
 
 from datetime import datetime
 
-from sqlalchemy import Boolean, DateTime, Integer, String, Text, UniqueConstraint
+from sqlalchemy import Boolean, DateTime, Index, Integer, String, Text, UniqueConstraint, false
 from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column
 
 
@@ -17,9 +17,15 @@ class Base(DeclarativeBase):
 
 
 class CardLog(Base):
-    """One row per card returned, written at response time."""
+    """One row per finding evaluated and not switched off, written at response time: the cards
+    returned (``action`` ``show``) and those kept back (``suppressed``, ``silent``) with why.
+
+    Only ``show`` rows were ever sent: feedback is accepted for those alone. The scope index
+    serves the one repeat-suppression query of a hook call (``store.cards.recent``).
+    """
 
     __tablename__ = "card_log"
+    __table_args__ = (Index("ix_card_log_scope", "patient_hash", "service_id", "created_at"),)
 
     id: Mapped[int] = mapped_column(Integer, primary_key=True, autoincrement=True)
     card_uuid: Mapped[str] = mapped_column(String(64), unique=True, index=True)
@@ -29,6 +35,35 @@ class CardLog(Base):
     patient_hash: Mapped[str | None] = mapped_column(String(64), nullable=True)
     client_id: Mapped[str | None] = mapped_column(String(300), nullable=True)
     created_at: Mapped[datetime] = mapped_column(DateTime(timezone=True), index=True)
+    # Alert burden (cds_service/alerts): what was done with the finding, and on what.
+    action: Mapped[str] = mapped_column(String(16), default="show", server_default="show")
+    why: Mapped[str | None] = mapped_column(String(300), nullable=True)
+    inputs_digest: Mapped[str | None] = mapped_column(String(32), nullable=True)
+    user_hash: Mapped[str | None] = mapped_column(String(64), nullable=True)
+    #: The call id ``tonicity replay`` sent (``X-Tonicity-Replay``); None for live traffic.
+    replay_call: Mapped[str | None] = mapped_column(String(64), nullable=True, index=True)
+    suggestion_ids: Mapped[str | None] = mapped_column(Text, nullable=True)  # JSON list
+    #: A silent row that would have been shown: history for later silent decisions only.
+    would_show: Mapped[bool] = mapped_column(Boolean, default=False, server_default=false())
+
+
+class AlertQuiet(Base):
+    """A clinician's override that hides a finding for a patient (``alerts.reasons``)."""
+
+    __tablename__ = "alert_quiet"
+    __table_args__ = (Index("ix_alert_quiet_scope", "patient_hash", "service_id"),)
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True, autoincrement=True)
+    patient_hash: Mapped[str | None] = mapped_column(String(64), nullable=True)
+    user_hash: Mapped[str | None] = mapped_column(String(64), nullable=True)
+    service_id: Mapped[str] = mapped_column(String(100))
+    finding_code: Mapped[str] = mapped_column(String(64))
+    reason_code: Mapped[str] = mapped_column(String(100))
+    indicator: Mapped[str] = mapped_column(String(16))
+    inputs_digest: Mapped[str | None] = mapped_column(String(32), nullable=True)
+    since: Mapped[datetime] = mapped_column(DateTime(timezone=True))
+    until: Mapped[datetime | None] = mapped_column(DateTime(timezone=True), nullable=True)
+    card_uuid: Mapped[str] = mapped_column(String(64))
 
 
 class Feedback(Base):

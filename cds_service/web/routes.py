@@ -20,7 +20,7 @@ from starlette.concurrency import run_in_threadpool
 from cds_service.clinical.findings import FindingCode
 from cds_service.hooks import bodies, snapshots
 from cds_service.hooks.service import HookError
-from cds_service.web import findings, pages, samples, trend
+from cds_service.web import findings, pages, quality, samples, trend
 from cds_service.web.markdown import render_markdown
 
 STATIC_DIR = Path(__file__).parent / "static"
@@ -132,6 +132,7 @@ def _problem(status: int, message: str) -> JSONResponse:
 
 def create_router() -> APIRouter:
     router = APIRouter(include_in_schema=False)
+    router.include_router(quality.create_router())  # /quality (alert burden, feedback)
 
     @router.get("/", response_class=HTMLResponse)
     def workbench(request: Request) -> HTMLResponse:

@@ -17,7 +17,7 @@ from cds_service.clinical.context import ClinicalContext
 from cds_service.clinical.notes import LABELS
 from cds_service.fhir import build_context
 from cds_service.hooks.cards import one_per_code
-from cds_service.hooks.service import gather_data, parse_call
+from cds_service.hooks.service import gather_data, no_cards_reason, parse_call
 
 
 def _patient(ctx: ClinicalContext) -> dict[str, Any]:
@@ -64,4 +64,9 @@ async def understand(
             for f in one_per_code(findings)
         },
         "unavailable": dict(sorted(state.unavailable.items())),
+        **(
+            {"reason": reason}
+            if not findings and (reason := no_cards_reason(ctx, settings, thresholds))
+            else {}
+        ),
     }

@@ -137,7 +137,15 @@ def test_feedback_timestamps_that_cannot_be_converted_are_400(trial: Any, stamp:
 
 @pytest.mark.parametrize("stamp", ["9999-12-31T23:59:59+00:00", "0001-01-01T00:00:00Z"])
 def test_feedback_timestamps_at_the_edges_that_fit_are_stored(trial: Any, stamp: str) -> None:
-    body = {"feedback": [{"card": "c-1", "outcome": "accepted", "outcomeTimestamp": stamp}]}
+    from tests.hooks.fhirdata import hook_request, sodium_series
+
+    # Feedback is checked against the card log: answer a card this service returned.
+    (card, *_) = trial.post(PATH, json=hook_request(observations=sodium_series(127))).json()[
+        "cards"
+    ]
+    body = {
+        "feedback": [{"card": card["uuid"], "outcome": "overridden", "outcomeTimestamp": stamp}]
+    }
     r = trial.post(FEEDBACK, json=body)
     assert (r.status_code, r.json()) == (200, {"stored": 1})
 
@@ -222,3 +230,33 @@ def test_echoed_identifiers_are_capped(trial: Any) -> None:
     ):
         assert_clean(r, "hardening")
         assert len(r.json()["issue"][0]["diagnostics"]) <= 500, r.json()
+
+
+# ---- feedback audience -------------------------------------------------------------------------
+
+
+@pytest.mark.parametrize(
+    ("aud", "status"),
+    [
+        (f"{ENDPOINT}/feedback", 200),  # the feedback URL (CDS Hooks 2.0)
+        (ENDPOINT, 200),  # the service URL, which clients commonly reuse
+        (f"{BASE}/cds-services/sodium-order-sign", 401),  # another service's URL
+        (f"{BASE}/cds-services", 401),
+    ],
+)
+def test_feedback_accepts_its_service_url_as_audience(
+    tmp_path: Path, aud: str, status: int
+) -> None:
+    key = new_key()
+    config = settings_for(tmp_path, key).model_copy(
+        update={"storage": StorageSettings(url=f"sqlite:///{tmp_path / 'a.db'}")}
+    )
+    body = {
+        "feedback": [{"card": "c-1", "outcome": "accepted", "outcomeTimestamp": NOW.isoformat()}]
+    }
+    with TestClient(create_app(config), raise_server_exceptions=False) as client:
+        client.app.state.authenticator._now = lambda: NOW
+        token = sign(key, claims(aud=aud))
+        r = client.post(FEEDBACK, json=body, headers={"Authorization": f"Bearer {token}"})
+    assert_clean(r, "hardening")
+    assert r.status_code == status, r.text

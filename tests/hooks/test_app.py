@@ -334,9 +334,19 @@ def test_card_log_and_feedback_on_each_database(store_url: str, settings) -> Non
         result = c.post(WORKUP, json=hook_request(observations=sodium_series(121))).json()
         uuids = [card["uuid"] for card in result["cards"]]
         stamp = NOW.isoformat()
+        # CDS Hooks 2.0 "Feedback": acceptedSuggestions is required for an accepted outcome,
+        # so cards without suggestions are reported overridden.
         feedback = {
             "feedback": [
-                {"card": u, "outcome": "accepted", "outcomeTimestamp": stamp} for u in uuids
+                {
+                    "card": card["uuid"],
+                    "outcome": "accepted",
+                    "acceptedSuggestions": [{"id": card["suggestions"][0]["uuid"]}],
+                    "outcomeTimestamp": stamp,
+                }
+                if card.get("suggestions")
+                else {"card": card["uuid"], "outcome": "overridden", "outcomeTimestamp": stamp}
+                for card in result["cards"]
             ]
         }
         assert c.post(f"{WORKUP}/feedback", json=feedback).status_code == 200

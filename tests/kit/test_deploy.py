@@ -47,8 +47,8 @@ def test_compose_runs_several_replicas_behind_a_proxy(compose: dict[str, Any]) -
     assert proxy["image"].startswith("nginx")
     assert "./nginx.conf:/etc/nginx/nginx.conf:ro" in proxy["volumes"]
     conf = (DOCKER / "nginx.conf").read_text(encoding="utf-8")
-    assert re.search(r"server\s+tonicity:8080", conf)
-    assert "proxy_pass http://tonicity" in conf
+    assert re.search(r"set\s+\$tonicity_upstream\s+http://tonicity:8080;", conf)
+    assert "proxy_pass $tonicity_upstream;" in conf
 
 
 def test_compose_has_postgresql_with_a_named_volume(compose: dict[str, Any]) -> None:
@@ -131,27 +131,33 @@ def test_k8s_deployment_is_scaled_with_probes_and_limits() -> None:
     assert "--port" in container["args"] and str(port) in container["args"]
 
 
-def test_k8s_takes_database_url_and_keys_from_the_secret_and_config_from_the_map() -> None:
+def test_k8s_takes_secrets_from_the_secret_and_config_from_the_map() -> None:
     k = _k8s()
-    secret, config_map = k["Secret"], k["ConfigMap"]
+    (secret,) = _docs(DOCKER / "k8s-examples" / "secret.example.yaml")
+    config_map = k["ConfigMap"]
     pod = k["Deployment"]["spec"]["template"]["spec"]
     (container,) = pod["containers"]
     env = {e["name"]: e for e in container["env"]}
-    ref = env["TONICITY_STORAGE__URL"]["valueFrom"]["secretKeyRef"]
-    assert ref["name"] == secret["metadata"]["name"]
-    assert ref["key"] in secret["stringData"]
-    assert secret["stringData"][ref["key"]].startswith("postgresql+psycopg://")
+    ref = env["TONICITY_LOGGING__PATIENT_ID_SALT"]["valueFrom"]["secretKeyRef"]
+    assert ref["name"] == secret["metadata"]["name"] and ref["key"] in secret["stringData"]
+    assert "TONICITY_STORAGE__URL" not in env  # the URL holds no password: in the ConfigMap
     volumes = {v["name"]: v for v in pod["volumes"]}
     assert any(
         v.get("configMap", {}).get("name") == config_map["metadata"]["name"]
         for v in volumes.values()
     )
-    assert any(
-        v.get("secret", {}).get("secretName") == secret["metadata"]["name"]
-        for v in volumes.values()
-    )
+    password = volumes["db-password"]["secret"]
+    assert password["secretName"] == secret["metadata"]["name"]
+    assert [i["key"] for i in password["items"]] == ["db-password"]
+    assert "db-password" in secret["stringData"]
     mounts = {m["mountPath"] for m in container["volumeMounts"]}
-    assert "/etc/tonicity/config.toml" in mounts
+    assert "/etc/tonicity/config.toml" in mounts and "/etc/tonicity/secrets" in mounts
+    conf = tomllib.loads(config_map["data"]["config.toml"])
+    assert conf["storage"]["password_file"] == "/etc/tonicity/secrets/db-password"
+    assert (
+        "@" in conf["storage"]["url"]
+        and ":" not in conf["storage"]["url"].split("//")[1].split("@")[0]
+    )
 
 
 def test_k8s_service_selects_the_deployment_pods() -> None:
@@ -174,7 +180,13 @@ def _configs() -> list[Any]:
 
 
 @pytest.mark.parametrize(("name", "data"), _configs())
-def test_shipped_configs_are_valid_settings(name: str, data: dict[str, Any]) -> None:
+def test_shipped_configs_are_valid_settings(
+    name: str, data: dict[str, Any], tmp_path: Path
+) -> None:
+    storage = data.get("storage", {})
+    if "password_file" in storage:  # the secret file exists only where it is deployed
+        (tmp_path / "db-password").write_text("example", encoding="utf-8")
+        storage["password_file"] = str(tmp_path / "db-password")
     settings = Settings(**data)
     assert settings.auth.required is True, name
     assert settings.server.public_base_url.startswith("https://"), name

@@ -11,6 +11,8 @@ from cds_service.store.database import Store
 T0 = datetime(2026, 3, 4, 9, 30, tzinfo=UTC)
 SERVICE = "sodium-workup"
 CLIENT = "https://ehr.larkspur-valley.example/"
+#: The one suggestion every logged test card carries.
+SUGGESTION = "9b1f6f0e-8c1d-4c5e-9a63-2f8f1f0b7a11"
 
 
 def card(code: str, service: str = SERVICE, indicator: str = "info") -> CardLogRow:
@@ -22,6 +24,7 @@ def card(code: str, service: str = SERVICE, indicator: str = "info") -> CardLogR
         patient_hash="0" * 32,
         client_id=CLIENT,
         created_at=T0,
+        suggestion_ids=(SUGGESTION,),
     )
 
 
@@ -31,11 +34,13 @@ def logged(store: Store, *codes: str, service: str = SERVICE) -> list[str]:
     return [r.card_uuid for r in rows]
 
 
-def accepted(card_uuid: str, at: str = "2026-03-04T09:35:00Z", suggestion: str | None = None):
-    item: dict = {"card": card_uuid, "outcome": "accepted", "outcomeTimestamp": at}
-    if suggestion:
-        item["acceptedSuggestions"] = [{"id": suggestion}]
-    return item
+def accepted(card_uuid: str, at: str = "2026-03-04T09:35:00Z", suggestion: str = SUGGESTION):
+    return {
+        "card": card_uuid,
+        "outcome": "accepted",
+        "acceptedSuggestions": [{"id": suggestion}],
+        "outcomeTimestamp": at,
+    }
 
 
 def overridden(

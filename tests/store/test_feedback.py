@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import json
 from datetime import UTC, datetime
 
@@ -10,9 +11,10 @@ from sqlalchemy import func, select
 
 from cds_service.errors import UserError
 from cds_service.store import feedback as feedback_module
+from cds_service.store.cards import log_cards
 from cds_service.store.feedback import record_feedback
 from cds_service.store.schema import Feedback
-from tests.store.helpers import CLIENT, SERVICE, T0, accepted, logged, overridden
+from tests.store.helpers import CLIENT, SERVICE, T0, accepted, card, logged, overridden
 
 
 def _rows(store) -> list[Feedback]:
@@ -24,7 +26,7 @@ def test_round_trip_of_both_outcomes(store) -> None:
     a, b = logged(store, "hypotonic-hyponatremia", "drug-associated")
     body = {
         "feedback": [
-            accepted(a, suggestion="9b1f6f0e-8c1d-4c5e-9a63-2f8f1f0b7a11"),
+            accepted(a),
             overridden(b, "benefit-outweighs-risk", comment="Discussed with nephrology"),
         ]
     }
@@ -62,15 +64,33 @@ def test_spec_example_body_is_accepted(store) -> None:
     assert row.outcome_at.replace(tzinfo=UTC) == datetime(2026, 3, 4, 14, 23, 11, tzinfo=UTC)
 
 
-def test_unknown_card_kept_and_flagged(store) -> None:
+def test_feedback_for_a_card_never_returned_is_refused(store) -> None:
+    """CDS Hooks 2.0.1 "Feedback": ``card`` is "The card.uuid from the CDS Hooks response";
+    a uuid this service never returned (unknown, another service's, or a card the alert policy
+    kept back) refuses the whole body and stores nothing."""
     (known,) = logged(store, "siadh-pattern")
     (other_service,) = logged(store, "vaptan-order", service="sodium-order-sign")
-    body = {
-        "feedback": [accepted(known), accepted("not-a-card-we-issued"), accepted(other_service)]
-    }
-    assert record_feedback(store, SERVICE, body, CLIENT, T0) == 3
-    flags = [(r.card_uuid, r.unknown_card) for r in _rows(store)]
-    assert flags == [(known, False), ("not-a-card-we-issued", True), (other_service, True)]
+    kept_back = card("drug-associated")
+    log_cards(store, [dataclasses.replace(kept_back, action="suppressed")])
+    for stranger in ("not-a-card-we-issued", other_service, kept_back.card_uuid):
+        body = {"feedback": [accepted(known), accepted(stranger)]}
+        with pytest.raises(UserError, match=r"feedback\[1\]\.card: this service never returned"):
+            record_feedback(store, SERVICE, body, CLIENT, T0)
+    assert _rows(store) == []
+
+
+def test_accepted_needs_suggestions_the_card_carried(store) -> None:
+    """CDS Hooks 2.0.1 "Feedback": acceptedSuggestions is "Required for accepted outcomes",
+    each ``id`` "The card.suggestion.uuid from the CDS Hooks response"."""
+    (known,) = logged(store, "siadh-pattern")
+    bare = {"card": known, "outcome": "accepted", "outcomeTimestamp": "2026-03-04T09:35:00Z"}
+    with pytest.raises(UserError, match="requires acceptedSuggestions"):
+        record_feedback(store, SERVICE, {"feedback": [bare]}, CLIENT, T0)
+    foreign = accepted(known, suggestion="0d6c1f4e-0000-4000-8000-000000000000")
+    with pytest.raises(UserError, match="carried no suggestion"):
+        record_feedback(store, SERVICE, {"feedback": [foreign]}, CLIENT, T0)
+    assert _rows(store) == []
+    assert record_feedback(store, SERVICE, {"feedback": [accepted(known)]}, CLIENT, T0) == 1
 
 
 @pytest.mark.parametrize(

@@ -13,7 +13,8 @@ from cds_service.cli import main
 from cds_service.store import Store
 from cds_service.store.cards import CardLogRow, log_cards
 from cds_service.store.feedback import feedback_report, record_feedback
-from tests.store.helpers import CLIENT, SERVICE, T0, accepted, logged, overridden
+from cds_service.store.schema import Feedback
+from tests.store.helpers import CLIENT, SERVICE, SUGGESTION, T0, accepted, logged, overridden
 
 
 def test_report_on_known_scenario(store) -> None:
@@ -27,10 +28,20 @@ def test_report_on_known_scenario(store) -> None:
         overridden(h3, "not-applicable"),
         overridden(d1, "already-treated", at="2026-03-04T09:36:00Z"),
         accepted(d1, at="2026-03-04T09:50:00Z"),
-        accepted("card-from-elsewhere"),
-        overridden("card-from-elsewhere-2"),
     ]
     record_feedback(store, SERVICE, {"feedback": items}, CLIENT, T0)
+    # Feedback flagged unknown_card before it was checked against the card log (now refused).
+    with store.session() as s:
+        for n, outcome in enumerate(("accepted", "overridden")):
+            s.add(
+                Feedback(
+                    card_uuid=f"card-from-elsewhere-{n}",
+                    service_id=SERVICE,
+                    outcome=outcome,
+                    received_at=T0,
+                    unknown_card=True,
+                )
+            )
     report = feedback_report(store)
     by_code = {f.finding_code: f for f in report.findings}
     hypo = by_code["hypotonic-hyponatremia"]
@@ -71,17 +82,41 @@ events = st.lists(
 )
 
 
+def _row(code: str, day: int, **fields) -> CardLogRow:
+    return CardLogRow(
+        str(uuid.uuid4()), SERVICE, code, "info", None, None, T0 + timedelta(days=day), **fields
+    )
+
+
 @settings(max_examples=40, deadline=None)
-@given(cards=st.lists(st.sampled_from(CODES), min_size=1, max_size=12), events=events)
-def test_report_laws(cards: list[str], events: list[tuple[int, str, int]]) -> None:
+@given(
+    cards=st.lists(st.sampled_from(CODES), min_size=1, max_size=12),
+    events=events,
+    kept=st.lists(
+        st.tuples(
+            st.sampled_from(CODES), st.sampled_from(["suppressed", "silent"]), st.integers(0, 20)
+        ),
+        max_size=10,
+    ),
+    days=st.lists(st.integers(0, 20), min_size=12, max_size=12),
+)
+def test_report_laws(
+    cards: list[str],
+    events: list[tuple[int, str, int]],
+    kept: list[tuple[str, str, int]],
+    days: list[int],
+) -> None:
     """Laws: accepted + overridden + ignored == shown per code; each card counts once, by its
-    latest feedback; reason counts add up to the overridden count (our counting rules)."""
+    latest feedback; reason counts add up to the overridden count; evaluated == shown +
+    suppressed + silent; the weeks add up to the totals (our counting rules)."""
     store = Store("sqlite://")
     try:
         rows = [
-            CardLogRow(str(uuid.uuid4()), SERVICE, code, "info", None, None, T0) for code in cards
+            _row(code, day, suggestion_ids=(SUGGESTION,))
+            for code, day in zip(cards, days, strict=False)
         ]
-        log_cards(store, rows)
+        back = [_row(code, day, action=action) for code, action, day in kept]
+        log_cards(store, rows + back)
         latest: dict[str, tuple[int, str]] = {}
         items = []
         for index, outcome, minute in events:
@@ -98,9 +133,17 @@ def test_report_laws(cards: list[str], events: list[tuple[int, str, int]]) -> No
     finally:
         store.close()
     assert sum(f.shown for f in report.findings) == len(rows)
+    assert sum(f.evaluated for f in report.findings) == len(rows) + len(kept)
+    assert sum(f.suppressed for f in report.findings) == sum(a == "suppressed" for _, a, _ in kept)
     for f in report.findings:
         assert f.accepted + f.overridden + f.ignored == f.shown
+        assert f.evaluated == f.shown + f.suppressed + f.silent
         assert sum(r.count for r in f.override_reasons) == f.overridden
+        weeks = [w for w in report.weeks if w.finding_code == f.finding_code]
+        for name in ("evaluated", "shown", "suppressed", "silent", "accepted", "overridden"):
+            assert sum(getattr(w, name) for w in weeks) == getattr(f, name)
+    for w in report.weeks:  # weeks start on a Monday (ISO 8601 week, our counting rule)
+        assert datetime.fromisoformat(w.week).weekday() == 0
     # Ties in time are broken by arrival order, which `latest` mirrors with `>=`.
     want_accepted = sum(1 for _, o in latest.values() if o == "accepted")
     assert sum(f.accepted for f in report.findings) == want_accepted
