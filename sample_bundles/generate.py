@@ -80,6 +80,7 @@ ANALYTES: dict[str, tuple[str, str, str, str, str]] = {
              "laboratory"),
     "wt": ("29463-7", "Body weight", "kg", "kg", "vital-signs"),
     "ht": ("8302-2", "Body height", "cm", "cm", "vital-signs"),
+    "eth": ("5643-2", "Ethanol [Mass/volume] in Serum or Plasma", "mg/dL", "mg/dL", "laboratory"),
 }
 SODIUM_KEYS = {"na", "na_bg"}  # the service's "sodium" prefetch key
 # The service's other Observation prefetch keys (cds_service/hooks/registry.py LAB_GROUPS);
@@ -521,9 +522,48 @@ def people() -> list[Person]:
         "p15-long-stay-heart-failure", "lvh-p15", "LVH-000115", "Winifred", "Ashdown", "female",
         "1947-03-02", labs=long_labs, conditions=["heart_failure"]))
 
-    # 16. Seizure with profound chronic hyponatremia (SIADH pattern after pneumonia).
+    # --- Classification by effective osmolality, glucose first, urine boundary -------------
+    # 16. Kidney failure: measured osmolality 292 is normal, but urea nitrogen 110 mg/dL adds
+    #     110/2.8 = 39.3 mOsm/kg of an ineffective osmole: effective 252.7, hypotonic. Urine osm
+    #     380 and urine Na 45 give the SIADH pattern, whose renal criterion is not met (eGFR).
     out.append(Person(
-        "p16-seizure-severe-symptoms", "lvh-p16", "LVH-000116", "Lucinda", "Ferreira-Banks",
+        "p16-uremia-effective-hypotonic", "lvh-p16", "LVH-000116", "Gustavo", "Ferreira-Lund",
+        "male", "1950-07-30",
+        labs=panel(3, na=127, k=5.4, glu=90, bun=110, cr=6.2, sosm=292, uosm=380, una=45,
+                   wt=74.0)))
+
+    # 17. Ethanol 250 mg/dL (250/4.6 = 54.3 mOsm/kg) and urea nitrogen 12 (4.3): measured 318,
+    #     effective 259.4, hypotonic; calculated 258 + 5.3 + 4.3 + 54.3 = 321.9, no gap. Urine
+    #     osmolality 90 (<= 100): relative excess water intake (beer).
+    out.append(Person(
+        "p17-ethanol-effective-hypotonic", "lvh-p17", "LVH-000117", "Niall", "Drummond", "male",
+        "1969-01-12",
+        labs=panel(3, na=129, k=3.6, glu=95, bun=12, cr=0.8, sosm=318, eth=250, uosm=90,
+                   tsh=2.0, cort=16.0, wt=70.0),
+        conditions=["alcohol"]))
+
+    # 18. Glucose 560 mg/dL with Na 119: Hillier 119 + 2.4 x 4.6 = 130.0 (Katz 126.4) is still
+    #     low, so hypotonic hyponatremia remains beyond the glucose (effective osmolality 282 - 3.2
+    #     = 278.8 would not show it). Urine osm 430, urine Na 58: SIADH pattern; pneumonia.
+    out.append(Person(
+        "p18-hyperglycemia-residual-hypotonic", "lvh-p18", "LVH-000118", "Marguerite", "Oyelaran",
+        "female", "1957-11-03",
+        labs=panel(3, na=119, k=4.4, glu=560, bun=9, cr=0.7, sosm=282, uosm=430, una=58,
+                   tsh=1.6, cort=18.0, wt=68.0),
+        conditions=["t2dm", "pneumonia"], medications=["glargine"]))
+
+    # 19. Urine osmolality exactly 100 mOsm/kg: relative excess water intake (the European
+    #     algorithm's boundary is inclusive), and the urine sodium of 25 is not interpreted.
+    out.append(Person(
+        "p19-urine-osmolality-100", "lvh-p19", "LVH-000119", "Hilde", "Varga", "female",
+        "1981-04-22",
+        labs=panel(3, na=128, k=3.8, glu=92, bun=7, cr=0.6, sosm=262, uosm=100, una=25,
+                   tsh=1.2, cort=16.0, wt=61.0),
+        conditions=["polydipsia"]))
+
+    # 20. Seizure with profound chronic hyponatremia (SIADH pattern after pneumonia).
+    out.append(Person(
+        "p20-seizure-severe-symptoms", "lvh-p20", "LVH-000120", "Lucinda", "Ferreira-Banks",
         "female", "1968-09-12",
         labs=panel(1, na=116, k=3.9, glu=101, bun=9, cr=0.7, sosm=246, uosm=490, una=64,
                    tsh=2.1, cort=18.5, wt=62.0)
@@ -588,7 +628,19 @@ PATIENT_VIEW: dict[str, tuple[list[str], list[str], str]] = {
     "p15-long-stay-heart-failure": (
         ["hypotonic-hyponatremia", "low-urine-sodium"], [],
         "Day 40 of a heart-failure stay, over 300 results: slow fall to Na 129, urine Na 22."),
-    "p16-seizure-severe-symptoms": (
+    "p16-uremia-effective-hypotonic": (
+        ["hypotonic-hyponatremia", "siadh-pattern", "endocrine-screen"], [],
+        "Kidney failure: measured osm 292 is normal, urea set aside leaves effective 253."),
+    "p17-ethanol-effective-hypotonic": (
+        ["hypotonic-hyponatremia", "dilute-urine"], [],
+        "Ethanol 250 mg/dL: measured osm 318, effective 259 once ethanol and urea are set aside."),
+    "p18-hyperglycemia-residual-hypotonic": (
+        ["hypotonic-hyponatremia", "siadh-pattern"], ["drug-associated"],
+        "Glucose 560, Na 119: corrected Na 130 is still low, worked up as hypotonic (SIADH)."),
+    "p19-urine-osmolality-100": (
+        ["hypotonic-hyponatremia", "dilute-urine"], [],
+        "Urine osm exactly 100 mOsm/kg: relative excess water intake; urine Na 25 not read."),
+    "p20-seizure-severe-symptoms": (
         ["hypotonic-hyponatremia", "siadh-pattern"], [],
         "Seizure coded, Na 116 after 121 two days earlier, urine osm 490: severe symptoms."),
 }
@@ -648,7 +700,7 @@ ORDER_CASES: tuple[OrderCase, ...] = (
         ("correction-rate-exceeded", "hypotonic-fluid-order"),
         "D5W after Na rose 112 -> 124 in 20 hours: the advised re-lowering, amounts shown."),
     OrderCase(
-        "o09-hypertonic-saline-seizure-select", "p16-seizure-severe-symptoms", "order-select",
+        "o09-hypertonic-saline-seizure-select", "p20-seizure-severe-symptoms", "order-select",
         (("fluid", "nacl3"),), (0,),
         ("hypertonic-saline-order",),
         "3% saline at Na 116 with a seizure coded: the repeated 150 mL bolus regimen."),

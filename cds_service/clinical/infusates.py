@@ -60,12 +60,12 @@ class Infusate:
     source: str
     from_memory: bool
     locator: str = ""  # where in the source the composition stands
+    balanced: bool = False
+    potassium_added: bool = False
 
     @property
     def citation(self) -> str:
         return cite(self.source, self.from_memory, self.locator)
-    balanced: bool = False
-    potassium_added: bool = False
 
     def __post_init__(self) -> None:
         if min(self.sodium, self.potassium) < 0 or self.osmolarity <= 0:

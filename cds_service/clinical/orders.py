@@ -278,7 +278,8 @@ def isotonic_fluid_finding(o: OrderContext, fluids: list[ResolvedFluid]) -> Find
         code=FindingCode.ISOTONIC_FLUID_ORDER,
         urgency=urgency,
         summary=shorten(
-            f"{shorten(first.label, 40)} ({first.kind}) drafted while sodium is {_na(o)}{per_l}",
+            f"{shorten(first.label, 40)}{f' ({first.kind})' if first.balanced else ''} "
+            f"drafted while sodium is {_na(o)}{per_l}",
             139,
         ),
         details=tuple(details),

@@ -7,7 +7,8 @@ that was not measured is not subtracted). Effective osmolality < 275 mOsm/kg is 
 275-295 isotonic, > 295 hypertonic.
 
 Glucose first, then what remains: in hyperglycemia the sodium is corrected for glucose
-(Hillier 1999, the factor the European guideline uses; Katz 1973 is shown beside it). When the
+(Hillier 1999, the factor measured in hyperglycemic patients, judges; Katz 1973, the older
+and smaller estimate, is shown beside it). When the
 corrected sodium is still low, the hyponatremia that remains is hypotonic and is worked up as
 such (``residual``); otherwise the low sodium is translocational (hypertonic). Without a
 measured osmolality the class is unknown, or in hyperglycemia rests on the corrected sodium

@@ -93,9 +93,14 @@ def _set_aside_lines(c: Chemistry) -> list[str]:
     if parts:
         lines.append(
             f"Effective osmolality {num(effective)} mOsm/kg = measured {num(measured)} minus "
-            f"{' and '.join(parts)}. Urea and ethanol are ineffective osmoles: they cross cell "
-            "membranes, hold no water outside cells and do not protect cells from swelling, "
-            "so tonicity is judged without them (2014 European guideline, section 7.1)."
+            f"{' and '.join(parts)}. "
+            + (
+                "Urea and ethanol are ineffective osmoles: they cross"
+                if len(parts) > 1
+                else f"{parts[0].split(' ')[0].capitalize()} is an ineffective osmole: it crosses"
+            )
+            + " cell membranes, holds no water outside cells and does not protect cells from "
+            "swelling, so tonicity is judged without it (2014 European guideline, section 7.1)."
         )
     if c.val(Analyte.UREA_NITROGEN) is None:
         lines.append(

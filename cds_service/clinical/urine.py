@@ -112,7 +112,8 @@ def siadh_finding(c: Chemistry) -> Finding | None:
         return None
     essential = siadh_essential(c)
     met = sum(cr.status is Status.MET for cr in essential)
-    open_ = len(essential) - met
+    not_met = sum(cr.status is Status.NOT_MET for cr in essential)
+    open_ = len(essential) - met - not_met
     details = [
         "Essential criteria (Schwartz & Bartter 1957, as restated in 2014):",
         *(cr.line() for cr in essential),
@@ -188,7 +189,9 @@ def siadh_finding(c: Chemistry) -> Finding | None:
         urgency=Urgency.INFO,
         summary=(
             f"Urine osmolality {num(uosm, 0)} and urine sodium {num(una, 0)}: SIADH pattern; "
-            f"{met} of {len(essential)} essential criteria met, {open_} open"
+            f"{met} of {len(essential)} essential criteria met, "
+            + (f"{not_met} not met, " if not_met else "")
+            + f"{open_} open"
         ),
         details=tuple(details),
         values=tuple(values),

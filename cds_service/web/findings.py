@@ -42,15 +42,25 @@ PAGES: dict[FindingCode, FindingPage] = {
         ("sodium_lower_normal", "severity_mild_lower", "severity_moderate_lower"),
     ),
     FindingCode.HYPOTONIC: FindingPage(
-        "The low sodium comes with a low measured serum osmolality: water is in excess of "
-        "solute, the form of hyponatremia whose work-up continues with the urine studies.",
-        "Sodium below the lower limit and measured serum osmolality below the hypotonic limit.",
-        ("sodium_lower_normal", "tonicity_hypotonic_below"),
+        "The low sodium comes with a low effective osmolality: water is in excess of solute, "
+        "the form of hyponatremia whose work-up continues with the urine studies. Urea and "
+        "ethanol are ineffective osmoles and are set aside from the measured osmolality.",
+        "Sodium below the lower limit and effective osmolality (measured minus urea nitrogen/2.8 "
+        "and measured ethanol/4.6) below the hypotonic limit; or, in hyperglycemia, a "
+        "glucose-corrected sodium (Hillier) still below the lower limit.",
+        (
+            "sodium_lower_normal",
+            "tonicity_hypotonic_below",
+            "urea_nitrogen_mg_dl_per_mmol_l",
+            "ethanol_mg_dl_per_mmol_l",
+            "hillier_factor",
+        ),
     ),
     FindingCode.ISOTONIC: FindingPage(
         "The sodium is low but the measured osmolality is normal: consider a measurement "
         "artefact of high lipids or protein (pseudohyponatremia) or an isotonic solute.",
-        "Sodium below the lower limit and measured osmolality between the two tonicity limits.",
+        "Sodium below the lower limit and effective osmolality between the two tonicity "
+        "limits, without hyperglycemia.",
         (
             "tonicity_hypotonic_below",
             "tonicity_hypertonic_above",
@@ -61,8 +71,8 @@ PAGES: dict[FindingCode, FindingPage] = {
     FindingCode.HYPERTONIC: FindingPage(
         "The sodium is low because another solute (glucose, mannitol) draws water out of the "
         "cells; the glucose-corrected sodium tells what the sodium would be without it.",
-        "Sodium below the lower limit and measured osmolality above the hypertonic limit, or "
-        "glucose above the hyperglycemia limit.",
+        "Sodium below the lower limit and effective osmolality above the hypertonic limit, or "
+        "glucose above the hyperglycemia limit with a glucose-corrected sodium that is not low.",
         ("tonicity_hypertonic_above", "hyperglycemia_above", "katz_factor", "hillier_factor"),
     ),
     FindingCode.OSMOLAL_GAP: FindingPage(
@@ -76,16 +86,18 @@ PAGES: dict[FindingCode, FindingPage] = {
         ),
     ),
     FindingCode.DILUTE_URINE: FindingPage(
-        "In hypotonic hyponatremia a maximally dilute urine means the kidney is excreting "
-        "water: intake exceeds what it can clear (high water intake, low solute intake).",
-        "Hypotonic hyponatremia and urine osmolality below the dilute limit.",
-        ("urine_osmolality_dilute_below", "urine_osmolality_minimal", "solute_load_typical"),
+        "In hypotonic hyponatremia a dilute urine suggests the kidney is excreting water: "
+        "relative excess water intake (high water intake, low solute intake).",
+        "Hypotonic hyponatremia and urine osmolality at or below the dilute limit (inclusive); "
+        "urine sodium is then not interpreted.",
+        ("urine_osmolality_dilute_at_most", "urine_osmolality_minimal", "solute_load_typical"),
     ),
     FindingCode.LOW_URINE_SODIUM: FindingPage(
-        "In hypotonic hyponatremia a low urine sodium points to a low effective arterial "
+        "In hypotonic hyponatremia a low urine sodium suggests a low effective arterial "
         "blood volume (losses, heart failure, cirrhosis) rather than SIADH.",
-        "Hypotonic hyponatremia and urine sodium at or below the low limit.",
-        ("urine_sodium_low_at_most",),
+        "Hypotonic hyponatremia, urine osmolality above the dilute limit and urine sodium at "
+        "or below the low limit.",
+        ("urine_osmolality_dilute_at_most", "urine_sodium_low_at_most"),
     ),
     FindingCode.SIADH_PATTERN: FindingPage(
         "The results fit the syndrome of inappropriate antidiuresis; the card lists which "
@@ -93,11 +105,16 @@ PAGES: dict[FindingCode, FindingPage] = {
         "Hypotonic hyponatremia, urine osmolality above the dilute limit and urine sodium above "
         "the low limit.",
         (
-            "urine_osmolality_dilute_below",
+            "urine_osmolality_dilute_at_most",
             "urine_sodium_low_at_most",
             "siadh_uric_acid_below",
             "siadh_urea_nitrogen_below",
             "siadh_fe_urate_above",
+            "siadh_fe_sodium_above",
+            "free_t4_lower_normal",
+            "cortisol_morning_from_hour",
+            "cortisol_morning_until_hour",
+            "renal_insufficiency_egfr_below",
         ),
     ),
     FindingCode.DRUG_ASSOCIATED: FindingPage(
@@ -109,8 +126,15 @@ PAGES: dict[FindingCode, FindingPage] = {
     FindingCode.ENDOCRINE_SCREEN: FindingPage(
         "Hypothyroidism and adrenal insufficiency must be excluded before SIADH is called; "
         "the tests are missing in the window.",
-        "Hypotonic hyponatremia and TSH or cortisol missing within their lookback.",
-        ("tsh_upper_normal", "cortisol_adrenal_unlikely_above"),
+        "Hypotonic hyponatremia and TSH or cortisol missing within their lookback, or TSH "
+        "raised without a free T4 (only overt hypothyroidism excludes SIADH).",
+        (
+            "tsh_upper_normal",
+            "free_t4_lower_normal",
+            "cortisol_adrenal_unlikely_above",
+            "cortisol_morning_from_hour",
+            "cortisol_morning_until_hour",
+        ),
     ),
     FindingCode.CORRECTION_RATE: FindingPage(
         "The sodium has risen faster than the limit that applies to this patient; too fast a "

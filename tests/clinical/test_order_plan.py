@@ -259,3 +259,31 @@ def test_goal_volume_never_exceeds_limit_volume_and_shrinks_with_the_rise(
     goal_now = float(now.get(V.VOLUME_TO_GOAL_24H, 0.0))  # type: ignore[arg-type]
     assert goal_now <= float(now[V.MAX_VOLUME_24H]) + 0.01  # type: ignore[arg-type]
     assert goal_now <= float(before[V.VOLUME_TO_GOAL_24H]) + 0.01  # type: ignore[arg-type]
+
+
+@given(
+    na=st.floats(100, 134),
+    tbw=st.floats(15, 60),
+    v1=st.floats(0.01, 3),
+    v2=st.floats(0.01, 3),
+    key=st.sampled_from(["nacl_3", "nacl_0_9", "d5w", "lactated_ringers"]),
+)
+def test_projected_change_is_monotone_in_the_drafted_volume(
+    na: float, tbw: float, v1: float, v2: float, key: str
+) -> None:
+    # Law (Adrogué & Madias 2000, a linear change per litre): more volume of the same fluid
+    # moves sodium further in the same direction.
+    from cds_service.clinical.infusates import resolve
+    from cds_service.clinical.treatment import infusion_effect
+
+    def change(litres: float) -> float:
+        draft = DraftFluid("MedicationRequest/x", "x", named_solution=key, volume_l=litres)
+        fluid = resolve(draft, TH)
+        assert fluid is not None
+        rise = infusion_effect(fluid, na, tbw, 10).projected_rise_24h
+        assert rise is not None
+        return rise
+
+    small, large = sorted((v1, v2))
+    a, b = change(small), change(large)
+    assert (a <= b + 1e-9) if a >= 0 else (b <= a + 1e-9)

@@ -238,8 +238,10 @@ def test_echoed_identifiers_are_capped(trial: Any) -> None:
 @pytest.mark.parametrize(
     ("aud", "status"),
     [
-        (f"{ENDPOINT}/feedback", 200),  # the feedback URL (CDS Hooks 2.0)
-        (ENDPOINT, 200),  # the service URL, which clients commonly reuse
+        # The token is accepted, so the body is judged: card c-1 was never issued by this
+        # service (feedback is checked against the card log), a 400 and not a 401.
+        (f"{ENDPOINT}/feedback", 400),  # the feedback URL (CDS Hooks 2.0)
+        (ENDPOINT, 400),  # the service URL, which clients commonly reuse
         (f"{BASE}/cds-services/sodium-order-sign", 401),  # another service's URL
         (f"{BASE}/cds-services", 401),
     ],
@@ -252,7 +254,7 @@ def test_feedback_accepts_its_service_url_as_audience(
         update={"storage": StorageSettings(url=f"sqlite:///{tmp_path / 'a.db'}")}
     )
     body = {
-        "feedback": [{"card": "c-1", "outcome": "accepted", "outcomeTimestamp": NOW.isoformat()}]
+        "feedback": [{"card": "c-1", "outcome": "overridden", "outcomeTimestamp": NOW.isoformat()}]
     }
     with TestClient(create_app(config), raise_server_exceptions=False) as client:
         client.app.state.authenticator._now = lambda: NOW
@@ -260,3 +262,5 @@ def test_feedback_accepts_its_service_url_as_audience(
         r = client.post(FEEDBACK, json=body, headers={"Authorization": f"Bearer {token}"})
     assert_clean(r, "hardening")
     assert r.status_code == status, r.text
+    if status == 400:
+        assert "never returned card" in r.text

@@ -49,6 +49,7 @@ LOINC_UNITS = {
     "2143-6": "ug/dL",
     "29463-7": "kg",
     "8302-2": "cm",
+    "5643-2": "mg/dL",  # ethanol
 }
 # Record-system strings and their UCUM meaning: mEq/L = mmol/L for a monovalent ion and
 # mOsm/kg H2O = mosm/kg (common practice).
@@ -249,11 +250,17 @@ def test_manifest_follows_the_design_table(sample: dict[str, Any]) -> None:
     if osm is None:
         assert "hyponatremia-tonicity-unknown" in must
         return
+    # Effective osmolality: measured minus urea nitrogen/2.8 and ethanol/4.6 (ineffective
+    # osmoles; Spasovski 2014 section 7.1, Nguyen 2020). In hyperglycemia (> 200 mg/dL) a
+    # sodium still below 135 after the Hillier 1999 correction is hypotonic hyponatremia.
+    effective = osm - lab.get("3094-0", 0) / 2.8 - lab.get("5643-2", 0) / 4.6
+    glucose = lab.get("2345-7", 0)
+    residual = glucose > 200 and na + 2.4 * (glucose - 100) / 100 < 135
     tonicity = (
         "hypotonic-hyponatremia"
-        if osm < 275
+        if effective < 275 or residual
         else "isotonic-hyponatremia"
-        if osm <= 295
+        if effective <= 295 and glucose <= 200
         else "hypertonic-hyponatremia"
     )
     assert tonicity in must
@@ -264,7 +271,7 @@ def test_manifest_follows_the_design_table(sample: dict[str, Any]) -> None:
         "hyponatremia-tonicity-unknown",
     } - {tonicity} <= must_not
     # calculated osmolality 2 Na + glucose/18 + BUN/2.8 (Dorwart and Chalmers 1975, from memory)
-    gap = osm - (2 * na + lab["2345-7"] / 18 + lab["3094-0"] / 2.8)
+    gap = osm - (2 * na + lab["2345-7"] / 18 + lab["3094-0"] / 2.8 + lab.get("5643-2", 0) / 4.6)
     if gap > 10:
         assert "osmolal-gap-elevated" not in must_not
     elif gap < 8:
@@ -275,8 +282,12 @@ def test_manifest_follows_the_design_table(sample: dict[str, Any]) -> None:
             must_not
         )
         return
-    assert ("dilute-urine" in must) == (urine_osm is not None and urine_osm < 100)
-    assert ("low-urine-sodium" in must) == (urine_na is not None and urine_na <= 30)
+    # Spasovski 2014 section 7.2: urine osmolality <= 100 first; urine sodium read only above.
+    assert ("dilute-urine" in must) == (urine_osm is not None and urine_osm <= 100)
+    concentrated = urine_osm is not None and urine_osm > 100
+    assert ("low-urine-sodium" in must) == (
+        concentrated and urine_na is not None and urine_na <= 30
+    )
     siadh = urine_osm is not None and urine_osm > 100 and urine_na is not None and urine_na > 30
     assert ("siadh-pattern" in must) == siadh
     screen_missing = "3016-3" not in lab or "2143-6" not in lab
