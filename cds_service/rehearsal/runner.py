@@ -74,13 +74,12 @@ def _env(config: str | None, start: datetime, end: datetime) -> Any:
 
 
 def alert_settings(settings: Any) -> Any:
-    """The configuration's alert-burden settings, as the live service builds them."""
-    from cds_service.alerts.policy import AlertSettings
+    """The configuration's alert-burden settings, built as the live service builds them
+    (``alerts.live.settings_for`` with the service registry)."""
+    from cds_service.alerts.live import settings_for
+    from cds_service.hooks.registry import SERVICES
 
-    build = getattr(AlertSettings, "from_settings", None)  # reads settings.alerts itself
-    if build is not None:
-        return build(settings)
-    return AlertSettings.default()
+    return settings_for(settings, SERVICES)
 
 
 def run_partition(task: dict[str, Any]) -> dict[str, Any]:

@@ -426,7 +426,10 @@ def _one_patient(
     latest = max(0.0, (timedelta(days=days) - stay - timedelta(days=2)).total_seconds())
     admitted = START + timedelta(days=1, seconds=rng.uniform(0, latest) // 60 * 60)
     discharged = admitted + stay
-    minor = rng.random() < 0.01
+    plants = bool(planted_every) and i % planted_every == planted_every // 2
+    # a few minors (the service makes no adult calculation for them), never a planted
+    # breach: the live service would not report one for a child, so it could not be found
+    minor = rng.random() < 0.01 and not plants
     emit(_patient_resource(pid, rng, admitted, minor))
     emit(
         {
@@ -455,7 +458,7 @@ def _one_patient(
         p.panel(admitted - timedelta(days=rng.randint(20, 60)), rng.randint(137, 142), 4.2)
 
     planted: Planted | None = None
-    if planted_every and i % planted_every == planted_every // 2:
+    if plants:
         planted, t, na_end = _planted(p, (i // planted_every) % 3, admitted + timedelta(hours=1))
         while t + timedelta(hours=24) < discharged:  # sodium stays where it got to
             t += timedelta(hours=24)

@@ -27,3 +27,19 @@ def test_readme_shows_the_analysts_two_commands() -> None:
     text = README.read_text(encoding="utf-8")
     assert "python -m cds_service.rehearsal.synthetic export/" in text
     assert "tonicity rehearse export/ --from" in text and "rehearsal.html" in text
+
+
+def test_no_breach_is_planted_on_a_minor(tmp_path: Path) -> None:
+    # Adults only (DESIGN.md, clinical content: under 18 one out-of-scope card and no adult
+    # calculation), so a breach planted on a child could never be found; patient 1940 of the
+    # default seed was such a case.
+    import orjson
+
+    truth = generate(tmp_path, 2000, days=90)
+    born = {
+        r["id"]: r["birthDate"]
+        for r in map(orjson.loads, (tmp_path / "Patient.ndjson").read_bytes().splitlines())
+    }
+    assert len(truth["planted_breaches"]) == 50
+    assert all(born[b["patient"]] < "2007-01-01" for b in truth["planted_breaches"])
+    assert any(b > "2008-01-01" for b in born.values())  # the minors are still there
