@@ -26,7 +26,7 @@ from pydantic import ValidationError
 from cds_service import logs, ops
 from cds_service.alerts import live as alerts
 from cds_service.clinical import engine
-from cds_service.clinical.context import Analyte
+from cds_service.clinical.context import Analyte, ClinicalContext
 from cds_service.clinical.findings import Finding, FindingCode
 from cds_service.config import Settings
 from cds_service.errors import UserError
@@ -391,6 +391,31 @@ def _require(state: PrefetchState) -> None:
         raise HookError(412, f"required data not available ({reasons})")
 
 
+def read_call(
+    call: HookCall, state: PrefetchState, settings: Settings, now: datetime, *, report_lines: bool
+) -> Any:
+    """The FHIR layer's reading of a call's data at ``now`` (``Ingested``): one place for the
+    hook path and the workbench, so both read a record the same way."""
+    return build_context(
+        state.resources(),
+        now=now,
+        settings=settings.ingest,
+        patient_id=call.patient_id,
+        draft_orders=call.draft_orders,
+        selections=call.selections,
+        report_lines=report_lines,
+        partial_reads=state.partial,
+        display_units=settings.display.units,
+    )
+
+
+def findings_for(call: HookCall, ctx: ClinicalContext, thresholds: Any) -> list[Finding]:
+    """The clinical core's findings for the call's hook."""
+    if call.service.hook == "patient-view":
+        return engine.evaluate_workup(ctx, thresholds)
+    return engine.evaluate_orders(ctx, thresholds)
+
+
 async def evaluate_request(body: object, **kwargs: Any) -> dict[str, Any]:
     """The response body for a hook call; keywords as :func:`evaluate`. Raises HookError."""
     return (await evaluate(body, **kwargs)).response
@@ -423,23 +448,10 @@ async def evaluate(
     state = await gather_data(call, settings, http=http, caller=caller, authenticator=authenticator)
     _require(state)
     with collector_paused():  # allocation-heavy and synchronous: see cds_service/gcpause.py
-        ingested = build_context(
-            state.resources(),
-            now=now,
-            settings=settings.ingest,
-            patient_id=call.patient_id,
-            draft_orders=call.draft_orders,
-            selections=call.selections,
-            report_lines=False,  # the hook response does not carry the ingest report
-            partial_reads=state.partial,
-            display_units=settings.display.units,
-        )
+        # the hook response does not carry the ingest report
+        ingested = read_call(call, state, settings, now, report_lines=False)
     ctx = ingested.context
-    if call.service.hook == "patient-view":
-        findings = engine.evaluate_workup(ctx, thresholds)
-    else:
-        findings = engine.evaluate_orders(ctx, thresholds)
-    findings = one_per_code(findings)
+    findings = one_per_code(findings_for(call, ctx, thresholds))
     # Alert burden (cds_service/alerts): settings, overrides and repeat suppression decide
     # which findings become cards; the others are logged with why.
     alert = alerts.settings_for(settings, SERVICES)

@@ -12,12 +12,16 @@ from __future__ import annotations
 from datetime import datetime
 from typing import Any
 
-from cds_service.clinical import engine
 from cds_service.clinical.context import ClinicalContext
 from cds_service.clinical.notes import LABELS
-from cds_service.fhir import build_context
 from cds_service.hooks.cards import one_per_code
-from cds_service.hooks.service import gather_data, no_cards_reason, parse_call
+from cds_service.hooks.service import (
+    findings_for,
+    gather_data,
+    no_cards_reason,
+    parse_call,
+    read_call,
+)
 
 
 def _patient(ctx: ClinicalContext) -> dict[str, Any]:
@@ -35,19 +39,9 @@ async def understand(
     """What the workbench shows beside the cards (raises HookError for a bad request)."""
     call = parse_call(body)
     state = await gather_data(call, settings)  # prefetch only: no client, nothing fetched
-    ingested = build_context(
-        state.resources(),
-        now=now,
-        settings=settings.ingest,
-        patient_id=call.patient_id,
-        draft_orders=call.draft_orders,
-        selections=call.selections,
-    )
+    ingested = read_call(call, state, settings, now, report_lines=True)
     ctx = ingested.context
-    if call.service.hook == "patient-view":
-        findings = engine.evaluate_workup(ctx, thresholds)
-    else:
-        findings = engine.evaluate_orders(ctx, thresholds)
+    findings = findings_for(call, ctx, thresholds)
     labels = {str(a): text for a, text in LABELS.items()}
     results = []
     for line in ingested.report.lines:
