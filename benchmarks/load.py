@@ -337,11 +337,7 @@ def _run_workers(
         if workers == args.workers[0]:
             results["scaling"] = _scaling(service, baseline, bodies, args.scaling_calls)
         for label, target in (("service", service), ("baseline", baseline)):
-            # each process of the tree, largest first: with workers > 1 the smallest is
-            # uvicorn's supervisor and the others are the workers
-            per_process = sorted(
-                (_servers.vm_rss(pid) / 2**20 for pid in target.pids()), reverse=True
-            )
+            per_process = [b / 2**20 for b in target.rss_per_process()]
             results.setdefault(f"{label}_rss_mib", {})[f"{workers}w"] = round(sum(per_process), 1)
             results.setdefault(f"{label}_rss_mib_per_process", {})[f"{workers}w"] = [
                 round(r, 1) for r in per_process
