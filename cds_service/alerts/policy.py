@@ -366,6 +366,25 @@ def _live(
     return "show", "shown: results changed since last shown"
 
 
+def latest_per_kind(history: Iterable[Shown], now: datetime) -> list[Shown]:
+    """``history`` cut to what :func:`decide` reads of it: per code, indicator, inputs digest
+    and silent flag, the latest card at or before ``now`` and the earliest after it (another
+    replica's clock may run ahead). :func:`decide` gives the same decisions, reasons
+    included, on both (tests/alerts/test_policy.py holds that law); the store reads the cut
+    form (``store.cards.recent``), so a chart opened a thousand times in the window costs
+    one row per kind of card, not a thousand."""
+    latest: dict[tuple[str, str, str, bool], Shown] = {}
+    ahead: dict[tuple[str, str, str, bool], Shown] = {}
+    for h in history:
+        kind = (h.code, h.indicator, h.inputs_digest, h.silent)
+        if h.at <= now:
+            if kind not in latest or h.at > latest[kind].at:
+                latest[kind] = h
+        elif kind not in ahead or h.at < ahead[kind].at:
+            ahead[kind] = h
+    return [*latest.values(), *ahead.values()]
+
+
 def decide(
     findings: Sequence[Finding],
     *,

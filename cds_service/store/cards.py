@@ -11,8 +11,21 @@ import json
 from collections.abc import Iterable
 from dataclasses import dataclass
 from datetime import datetime
+from typing import Any
 
-from sqlalchemy import ColumnElement, and_, insert, literal, null, or_, select, union_all
+from sqlalchemy import (
+    ColumnElement,
+    Select,
+    and_,
+    cast,
+    func,
+    insert,
+    literal,
+    null,
+    or_,
+    select,
+    union_all,
+)
 from sqlalchemy.engine import Connection
 from sqlalchemy.orm import Session
 
@@ -134,24 +147,38 @@ def recent(
     session: Session | Connection, scope: Scope, *, since: datetime, now: datetime
 ) -> list[Recent]:
     """The cards shown in ``scope`` since ``since`` and the overrides still in force at
-    ``now``: one statement (a UNION ALL of two index lookups), so one round trip per call.
-    Replay traffic is never history."""
-    shown = select(
-        literal(False).label("quiet"),
-        CardLog.finding_code,
-        CardLog.indicator,
-        CardLog.inputs_digest,
-        CardLog.created_at.label("at"),
-        null().label("until"),
-        null().label("reason"),
-        CardLog.would_show,
-    ).where(
+    ``now``: one statement (a UNION ALL of index lookups), so one round trip per call.
+    Replay traffic is never history.
+
+    Shown cards come cut as ``alerts.policy.latest_per_kind`` cuts them (the latest of each
+    kind at or before ``now``, the earliest after it), grouped in the database: a patient
+    whose chart was opened a thousand times in the window gives a few rows, not a thousand
+    (tests/alerts/test_live.py checks the cut against the policy's own)."""
+    kind = (CardLog.finding_code, CardLog.indicator, CardLog.inputs_digest, CardLog.would_show)
+    shown_where = (
         scope.matches(CardLog),
         CardLog.created_at >= as_utc(since),
         or_(CardLog.action == "show", CardLog.would_show.is_(True)),
         CardLog.replay_call.is_(None),
         CardLog.inputs_digest.is_not(None),
     )
+
+    def shown(moment: Any, *where: ColumnElement[bool]) -> Select[Any]:
+        return (
+            select(
+                literal(False).label("quiet"),
+                *kind[:3],
+                moment.label("at"),
+                cast(null(), AlertQuiet.until.type).label("until"),  # typed for PostgreSQL
+                null().label("reason"),
+                kind[3],
+            )
+            .where(*shown_where, *where)
+            .group_by(*kind)
+        )
+
+    latest = shown(func.max(CardLog.created_at), CardLog.created_at <= as_utc(now))
+    ahead = shown(func.min(CardLog.created_at), CardLog.created_at > as_utc(now))
     quiet = select(
         literal(True).label("quiet"),
         AlertQuiet.finding_code,
@@ -168,7 +195,7 @@ def recent(
     return [
         Recent(bool(q), code, indicator, digest, _moment(at), _moment(until), reason, bool(silent))
         for q, code, indicator, digest, at, until, reason, silent in session.execute(
-            union_all(shown, quiet)
+            union_all(latest, ahead, quiet)
         )
     ]
 

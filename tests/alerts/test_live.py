@@ -193,3 +193,49 @@ def test_feedback_on_a_suppressed_card_is_refused(store, store_url) -> None:
     kept = next(r for r in log(store) if r.action == "suppressed")
     with pytest.raises(UserError, match="never returned"):
         override(store, settings, {"uuid": kept.card_uuid}, None, 6)
+
+
+def test_the_store_reads_the_history_cut_as_the_policy_cuts_it(store, store_url) -> None:
+    """store.cards.recent groups in the database what alerts.policy.latest_per_kind groups in
+    Python: the same rows come back (a chart opened many times gives one row per kind), on
+    SQLite and PostgreSQL. Replay, suppressed and out-of-scope rows are never history."""
+    import random
+
+    from cds_service.alerts.live import split
+    from cds_service.alerts.policy import Shown, latest_per_kind
+    from cds_service.store.cards import CardLogRow, Scope, log_cards, recent
+
+    rng = random.Random(17)  # fixed: the same rows on both databases
+    rows, history = [], []
+    for i in range(300):
+        at = NOW + timedelta(minutes=rng.randint(-48 * 60, 20))
+        action = rng.choice(("show", "show", "silent", "suppressed"))
+        row = CardLogRow(
+            card_uuid=f"card-{i}",
+            service_id=rng.choice((WORKUP, WORKUP, "sodium-orders")),
+            finding_code=rng.choice(("hypotonic-hyponatremia", "drug-associated")),
+            indicator=rng.choice(("info", "warning")),
+            patient_hash=rng.choice(("p1", "p1", "p2")),
+            client_id=None,
+            created_at=at,
+            action=action,
+            inputs_digest=rng.choice(("d1", "d2")),
+            would_show=action == "silent" and rng.random() < 0.5,
+            replay_call="r1" if rng.random() < 0.1 else None,
+        )
+        rows.append(row)
+        counts = row.action == "show" or row.would_show
+        if row.patient_hash == "p1" and row.service_id == WORKUP and counts and not row.replay_call:
+            if at >= NOW - timedelta(hours=24):
+                history.append(
+                    Shown(row.finding_code, row.indicator, row.inputs_digest, at, row.would_show)
+                )
+    log_cards(store, rows)
+    scope = Scope("p1", WORKUP)
+    with store.engine.connect() as conn:
+        read = recent(conn, scope, since=NOW - timedelta(hours=24), now=NOW)
+    got, quiets = split(read)
+    expected = latest_per_kind(history, NOW)
+    assert quiets == []
+    assert sorted(got, key=repr) == sorted(expected, key=repr)
+    assert len(got) < len(history)  # cut, not the whole window

@@ -22,6 +22,7 @@ from cds_service.alerts.policy import (
     data,
     decide,
     inputs_digest,
+    latest_per_kind,
 )
 from cds_service.alerts.reasons import quiet_for_override, reason_displays
 from cds_service.clinical.findings import Finding, FindingCode, InputUsed, Urgency, Value, ValueName
@@ -361,3 +362,62 @@ def test_data_file_entries_carry_reason_and_source() -> None:
 def test_from_settings_reads_the_alerts_section() -> None:
     s = AlertSettings.from_settings(SimpleNamespace(alerts=AlertsConfig(scope="patient-and-user")))
     assert s.scope == "patient-and-user"
+
+
+# --- the cut history the store reads ---------------------------------------------------------
+
+_CODES = (FindingCode.HYPOTONIC, FindingCode.DRUG_ASSOCIATED, FindingCode.OSMOLAL_GAP)
+_histories = st.lists(
+    st.builds(
+        lambda code, urgency, sodium, minutes, silent: shown(
+            finding(code, urgency, sodium), T0 + timedelta(minutes=minutes), silent=silent
+        ),
+        st.sampled_from(_CODES),
+        st.sampled_from(list(Urgency)),
+        st.sampled_from((121.0, 127.0)),
+        st.integers(-30 * 60, 30),  # mostly before now, some after it (a clock running ahead)
+        st.booleans(),
+    ),
+    max_size=40,
+)
+
+
+@given(
+    history=_histories,
+    asked=st.lists(
+        st.tuples(
+            st.sampled_from(_CODES), st.sampled_from(list(Urgency)), st.sampled_from((121.0, 127.0))
+        ),
+        min_size=1,
+        max_size=3,
+        unique_by=lambda t: t[0],
+    ),
+    suppression=st.booleans(),
+    silent_service=st.booleans(),
+)
+def test_the_cut_history_gives_the_same_decisions(
+    history: list[Shown],
+    asked: list[tuple[FindingCode, Urgency, float]],
+    suppression: bool,
+    silent_service: bool,
+) -> None:
+    """Law: decide() on latest_per_kind(history) equals decide() on the whole history, the
+    reasons' wording included (the store reads only the cut form: store.cards.recent)."""
+    settings = settings_of(suppression=suppression)
+    service = SERVICE
+    if silent_service:
+        settings = settings_of(
+            suppression=suppression,
+            silent_services=[SERVICE],
+            unsafe_allow_silencing_critical=True,
+        )
+    findings = [finding(code, urgency, sodium) for code, urgency, sodium in asked]
+
+    def decisions(h: list[Shown]) -> list:
+        return decide(findings, service_id=service, history=h, quiets=[], settings=settings, now=T0)
+
+    cut = latest_per_kind(history, T0)
+    assert decisions(cut) == decisions(history)
+    assert len(cut) <= len(history)
+    kinds = {(h.code, h.indicator, h.inputs_digest, h.silent, h.at <= T0) for h in history}
+    assert len(cut) == len(kinds)
