@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import marshal
 import math
 import re
 from collections.abc import Callable
@@ -10,6 +9,8 @@ from dataclasses import dataclass, field
 from datetime import datetime, timedelta
 from functools import lru_cache
 from typing import Any, NamedTuple
+
+import orjson
 
 from cds_service.clinical.context import CANONICAL_UNITS, Analyte, LabResult, RejectedResult
 from cds_service.fhir import loinc, units, validate
@@ -111,10 +112,9 @@ class _Plan(NamedTuple):
 
 
 #: The fields that make up an Observation's shape: the validated read fields except the
-#: volatile ones (id and times), in validate's key order, valueQuantity's value set to 0.
+#: volatile ones (id and times), in validate's key order, valueQuantity's value set to 0;
+#: a shape is the JSON text of those present (an absent field is no key, a null is null).
 _SHAPE_FIELDS = validate.shared_fields("Observation")
-_QUANTITY_AT = _SHAPE_FIELDS.index("valueQuantity")
-_ABSENT: Any = ...  # a shape field the resource lacks: Ellipsis is no JSON value
 _UNSEEN: Any = object()
 
 
@@ -191,11 +191,11 @@ class ObservationReader:
         number_ = quantity.get("value")
         if type(number_) is not float and type(number_) is not int:  # bool is neither
             return False
-        parts = [resource.get(k, _ABSENT) for k in _SHAPE_FIELDS]
-        parts[_QUANTITY_AT] = {**quantity, "value": 0}
-        try:
-            shape = marshal.dumps(parts)
-        except ValueError:  # nested deeper than marshal goes
+        present = {k: resource[k] for k in _SHAPE_FIELDS if k in resource}
+        present["valueQuantity"] = {**quantity, "value": 0}
+        try:  # equal JSON text means equal data (1, 1.0 and true differ): same plan
+            shape = orjson.dumps(present)
+        except TypeError:  # not JSON orjson writes (too deep, over 64-bit, lone surrogate)
             return False
         plan = self._plans.get(shape, _UNSEEN)
         if plan is _UNSEEN:

@@ -180,3 +180,36 @@ def test_what_needs_a_reason_is_left_to_the_general_path() -> None:
     other = {**base, "subject": {"reference": "Patient/lvh-9999"}}
     assert not reader.fast(other, "Observation/x", lambda _r: False)
     assert reader.results == []
+
+
+def test_a_shape_the_key_cannot_write_is_read_by_the_general_path() -> None:
+    """The shape key is the JSON text of the shape fields (orjson). What orjson cannot write
+    (an integer over 64 bits or a lone surrogate, which a caller building resources in Python
+    can hand in, or nesting deeper than it goes) is left to the general path, which reads it as
+    before; and values equal in Python but not in JSON (1, 1.0, true) are separate shapes."""
+    reader = ObservationReader(NOW, ReportBuilder(enabled=False), lambda _a: NotImplemented)
+    sodium = {
+        "resourceType": "Observation",
+        "id": "na",
+        "status": "final",
+        "code": {"coding": [{"system": LOINC, "code": "2951-2"}]},
+        "subject": {"reference": f"Patient/{PATIENT_ID}"},
+        "effectiveDateTime": "2026-11-30T08:00:00Z",
+        "valueQuantity": {"value": 128, "unit": "mmol/L", "system": UCUM, "code": "mmol/L"},
+    }
+    deep: Any = {}
+    for _ in range(300):
+        deep = {"x": deep}
+    unwritable = [
+        {**sodium, "method": {"text": "direct", "extension": [{"valueInteger": 2**70}]}},
+        {**sodium, "method": {"text": "\ud800"}},
+        {**sodium, "specimen": deep},
+    ]
+    for obs in unwritable:
+        assert not reader.fast(obs, "Observation/na", lambda _r: True)
+    assert reader._plans == {} and reader.results == []
+    for i, flag in enumerate([1, 1.0, True]):
+        obs = {**sodium, "id": f"n{i}", "effectiveDateTime": f"2026-11-30T0{i + 5}:00:00Z"}
+        obs["method"] = {"coding": [{"system": "urn:x", "code": "a", "userSelected": flag}]}
+        reader.fast(obs, f"Observation/n{i}", lambda _r: True)
+    assert len(reader._plans) == 3
