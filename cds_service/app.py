@@ -25,7 +25,7 @@ import httpx
 from fastapi import FastAPI, Request
 from fastapi.exceptions import RequestValidationError
 from fastapi.middleware.cors import CORSMiddleware
-from fastapi.responses import JSONResponse
+from fastapi.responses import JSONResponse, Response
 from starlette.concurrency import run_in_threadpool
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
@@ -315,7 +315,7 @@ def _install_routes(app: FastAPI, settings: Settings) -> None:
         return JSONResponse(alerts.annotate_discovery(discovery(), alert_settings))
 
     @app.post("/cds-services/{service_id}")
-    async def call_service(service_id: str, request: Request) -> JSONResponse:
+    async def call_service(service_id: str, request: Request) -> Response:
         started = time.perf_counter()
         status = 500
         outcome = None
@@ -327,7 +327,7 @@ def _install_routes(app: FastAPI, settings: Settings) -> None:
             require_json_media_type(request)
             outcome = await _evaluate_off_loop(request, settings, caller, service_id)
             status = 200
-            return JSONResponse(outcome.response)
+            return Response(outcome.body, media_type="application/json")
         except HookError as exc:
             status = exc.status
             raise

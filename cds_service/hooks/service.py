@@ -49,7 +49,7 @@ from cds_service.hooks.cards import (
     with_quieting_reasons,
 )
 from cds_service.hooks.fetch import fetch_all
-from cds_service.hooks.models import Card, HookRequest, HookResponse, Link, to_json
+from cds_service.hooks.models import Card, HookRequest, HookResponse, Link, encode, to_json
 from cds_service.hooks.prefetch import PrefetchState, check_prefetch
 from cds_service.hooks.registry import (
     LAB_GROUPS,
@@ -181,6 +181,8 @@ class Outcome:
 
     response: dict[str, Any]
     service_id: str
+    #: ``response`` encoded (``models.encode``), on the evaluation thread, not the event loop.
+    body: bytes
     patient_id: str
     codes: list[str] = field(default_factory=list)
     unavailable: dict[str, str] = field(default_factory=dict)
@@ -522,8 +524,10 @@ async def evaluate(
             cards = render([])  # its snapshot is not stored: no link to it
             await _in_log_writer(store, write, cards, None)
         _count_cards(cards)
+    response = to_json(HookResponse(cards=cards))
     return Outcome(
-        response=to_json(HookResponse(cards=cards)),
+        response=response,
+        body=encode(response),
         service_id=call.service.id,
         patient_id=call.patient_id,
         codes=[c.source.topic.code for c in cards if c.source.topic],
