@@ -24,6 +24,7 @@ from cds_service.clinical.correction import applicable_limits, episode_start
 from cds_service.clinical.drugs import match_medication
 from cds_service.clinical.findings import FINDING_DISPLAY, Finding
 from cds_service.clinical.thresholds import Thresholds
+from cds_service.hooks.models import strict_dumps
 from cds_service.store import Store
 from cds_service.store.schema import Snapshot
 
@@ -59,7 +60,9 @@ def _utc(t: datetime) -> datetime:
 
 
 def _iso(t: datetime | None) -> str | None:
-    return None if t is None else _utc(t).isoformat()
+    if t is None:
+        return None
+    return (t if t.tzinfo is UTC else _utc(t)).isoformat()  # most times are UTC already
 
 
 # --- payload ----------------------------------------------------------------------------------
@@ -171,7 +174,7 @@ def new_snapshot(
         token_hash=token_hash(token),
         created_at=now,
         expires_at=now + timedelta(hours=ttl_hours),
-        payload=json.dumps(payload, separators=(",", ":"), allow_nan=False),
+        payload=strict_dumps(payload).decode("utf-8"),
     )
     return token, row
 

@@ -33,7 +33,7 @@ from cds_service.hooks.cards import (
     render_card,
     suggested_tests,
 )
-from cds_service.hooks.models import HookResponse, encode, prune, to_json
+from cds_service.hooks.models import HookResponse, encode, prune, strict_dumps, to_json
 from tests.hooks.conformance import check_response, empties
 
 NOW = datetime(2026, 3, 14, 9, 0, tzinfo=UTC)
@@ -183,6 +183,15 @@ def test_a_non_finite_number_anywhere_fails_loudly(value, bad, depth) -> None:  
         nested = {"k": nested} if i % 2 else [nested, value]
     with pytest.raises(ValueError, match="not JSON"):
         prune({"a": value, "b": nested})
+    with pytest.raises(ValueError, match="not JSON"):
+        strict_dumps({"a": value, "b": nested})
+
+
+@given(json_values)
+def test_strict_dumps_keeps_the_data_as_it_is(value) -> None:  # type: ignore[no-untyped-def]
+    """The trend snapshot's writer: nothing pruned (an empty series is data there), and the
+    bytes read back as the same data (standard library reader, exact integers)."""
+    assert json.loads(strict_dumps(value)) == value
 
 
 def test_a_nan_in_a_card_extension_is_refused_not_sent_as_null() -> None:
